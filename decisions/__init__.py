@@ -1,0 +1,1 @@
+"""The decision register: Django project and app (models, services, API, pages, memo)."""

@@ -1,0 +1,1 @@
+"""Browser face: forms validate, views call services."""

@@ -1,1 +1,0 @@
-"""Records of the decision register."""

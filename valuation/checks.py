@@ -1,0 +1,88 @@
+"""Small checks shared by the validators: each adds a located problem, never raises.
+
+Validation collects every problem rather than stopping at the first, so a user
+fixes a document in one round instead of one error at a time.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+from valuation.errors import ModelValidationError, Problem
+from valuation.limits import MAX_NAME_LENGTH, MAX_PROBLEMS_REPORTED
+
+__all__ = ["Problems", "is_number", "describe"]
+
+
+def is_number(value: Any) -> bool:
+    """A JSON number: int or float, not a bool (``true`` is not 1 in a model)."""
+    return isinstance(value, int | float) and not isinstance(value, bool)
+
+
+def describe(value: Any) -> str:
+    """Short rendering of an offending value for a message."""
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+class Problems:
+    """Collects located problems, up to a cap, and raises them together."""
+
+    def __init__(self) -> None:
+        self.items: list[Problem] = []
+        self.overflow = 0
+
+    def add(self, location: str, message: str) -> None:
+        if len(self.items) < MAX_PROBLEMS_REPORTED:
+            self.items.append(Problem(location, message))
+        else:
+            self.overflow += 1
+
+    def __bool__(self) -> bool:
+        return bool(self.items)
+
+    def as_list(self) -> list[Problem]:
+        if self.overflow:
+            return [*self.items, Problem("", f"... and {self.overflow} more problems not listed")]
+        return list(self.items)
+
+    def raise_if_any(self) -> None:
+        if self.items:
+            raise ModelValidationError(self.as_list())
+
+    # -- typed field checks -------------------------------------------------
+    def name(self, location: str, value: Any, what: str = "name") -> bool:
+        if not isinstance(value, str) or not value.strip():
+            self.add(location, f"{what} must be a non-empty text, got {describe(value)}")
+            return False
+        if len(value) > MAX_NAME_LENGTH:
+            self.add(location, f"{what} must be at most {MAX_NAME_LENGTH} characters long")
+            return False
+        if "\x00" in value:
+            self.add(location, f"{what} must not contain the NUL character")
+            return False
+        return True
+
+    def number(self, location: str, value: Any) -> bool:
+        if not is_number(value):
+            self.add(location, f"must be a number, got {describe(value)}")
+            return False
+        if not math.isfinite(value):
+            self.add(location, f"must be a finite number, got {value}")
+            return False
+        return True
+
+    def probability(self, location: str, value: Any) -> bool:
+        if not self.number(location, value):
+            return False
+        if not 0.0 <= value <= 1.0:
+            self.add(location, f"must be within [0, 1], got {value}")
+            return False
+        return True
+
+    def unknown_fields(self, location: str, obj: dict, allowed: frozenset[str]) -> None:
+        for key in obj:
+            if key not in allowed:
+                where = f"{location}.{key}" if location else key
+                self.add(where, f"unknown field (allowed: {', '.join(sorted(allowed))})")

@@ -1,0 +1,51 @@
+"""Documented limits and tolerances of the valuation core.
+
+They exist so that a mistyped or hostile document is refused with a message
+instead of exhausting memory, and so that every user knows how close to 1 a
+set of probabilities must sum.
+"""
+
+__all__ = [
+    "PROBABILITY_SUM_TOLERANCE",
+    "TIE_TOLERANCE",
+    "MAX_TREE_NODES",
+    "MAX_TREE_DEPTH",
+    "MAX_STATES",
+    "MAX_ALTERNATIVES",
+    "MAX_TABLE_CELLS",
+    "MAX_SIGNALS",
+    "MAX_STUDIES",
+    "MAX_PROBLEMS_REPORTED",
+    "MAX_NAME_LENGTH",
+    "MAX_TIME_YEARS",
+    "DETAIL_NODE_LIMIT",
+    "EXPAND_NODE_LIMIT",
+    "INFORMATION_NODE_LIMIT",
+]
+
+#: Probabilities of one chance node, or one likelihood row, must sum to 1 within this.
+PROBABILITY_SUM_TOLERANCE = 1e-6
+#: Two values within this relative distance are a tie; the first in document order wins.
+TIE_TOLERANCE = 1e-9
+#: A general tree may hold at most this many nodes (decision, chance and end).
+MAX_TREE_NODES = 2_000_000
+#: ... and be at most this many levels deep.
+MAX_TREE_DEPTH = 500
+#: Payoff tables: at most this many states, alternatives, cells, signals per study, studies.
+MAX_STATES = 5_000
+MAX_ALTERNATIVES = 5_000
+MAX_TABLE_CELLS = 5_000_000
+MAX_SIGNALS = 100
+MAX_STUDIES = 20
+#: Validation stops listing problems after this many (and says how many more).
+MAX_PROBLEMS_REPORTED = 200
+#: Names, labels and ids are at most this many characters.
+MAX_NAME_LENGTH = 200
+#: A cash flow may be dated at most this many years ahead.
+MAX_TIME_YEARS = 200
+#: Per-node details (value, best branch, pruned branches) are reported up to this tree size.
+DETAIL_NODE_LIMIT = 20_000
+#: A payoff table is expanded into an inspectable tree only up to this many nodes.
+EXPAND_NODE_LIMIT = 200_000
+#: Value of learning each chance node, and EVPI of a general tree, up to this tree size.
+INFORMATION_NODE_LIMIT = 5_000

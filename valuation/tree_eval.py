@@ -1,0 +1,204 @@
+"""Reports on a rolled-back tree: the plan in words, node details, risk profile, VOI.
+
+Value of information on a general tree treats each chance node as its own
+uncertainty, as drawn: learning node C before the first decision is worth
+sum_k P(k) V(tree | C = k) - V(tree) (common practice: "clairvoyance" on one
+node). EVPI of the whole tree learns every chance node at once; because the
+subtrees under a decision share no chance node, their clairvoyant values are
+independent and the distribution of the best of them follows from the product
+of their distribution functions.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from valuation.flattree import (
+    CHANCE,
+    DECISION,
+    END,
+    FlatTree,
+    Rollback,
+    reach_probabilities,
+    rollback,
+)
+from valuation.utility import certainty_equivalent
+
+__all__ = [
+    "plan_steps",
+    "plan_text",
+    "node_details",
+    "risk_profile",
+    "learning_value",
+    "clairvoyant_value",
+    "MAX_PLAN_STEPS",
+]
+
+MAX_PLAN_STEPS = 1000
+
+
+def _branches(tree: FlatTree, node: int) -> range:
+    f = int(tree.first_branch[node])
+    return range(f, f + int(tree.branch_count[node])) if f >= 0 else range(0)
+
+
+def plan_steps(tree: FlatTree, rb: Rollback, prob=None) -> tuple[list[dict], bool]:
+    """Each decision the plan reaches, with the chance outcomes that lead to it."""
+    p_all = tree.prob if prob is None else prob
+    steps: list[dict] = []
+    stack: list[tuple[int, tuple]] = [(tree.root, ())]
+    while stack:
+        node, when = stack.pop()
+        k = tree.kind[node]
+        if k == DECISION:
+            b = int(rb.best[node])
+            if len(steps) >= MAX_PLAN_STEPS:
+                return steps, True
+            steps.append({"node": tree.ids[node], "name": tree.names[node],
+                          "choice": tree.labels[b],
+                          "when": [{"node": n, "name": nm, "outcome": o} for n, nm, o in when]})
+            stack.append((int(tree.child[b]), when))
+        elif k == CHANCE:
+            for b in reversed(_branches(tree, node)):
+                if p_all[b] > 0:
+                    cond = (*when, (tree.ids[node], tree.names[node], tree.labels[b]))
+                    stack.append((int(tree.child[b]), cond))
+    return steps, False
+
+
+def plan_text(steps: list[dict], truncated: bool, limit: int = 60) -> str:
+    """The plan in words: 'At X choose Y. If Z is W: at ... choose ...'."""
+    if not steps:
+        return "No decision to take: the tree holds only chance and end nodes."
+    parts = []
+    for step in steps[:limit]:
+        cond = " and ".join(f"'{w['name']}' is '{w['outcome']}'" for w in step["when"])
+        action = f"at '{step['name']}' choose '{step['choice']}'"
+        parts.append(f"If {cond}: {action}." if cond else action[0].upper() + action[1:] + ".")
+    if len(steps) > limit or truncated:
+        parts.append(f"(and further decisions: {len(steps) - limit if len(steps) > limit else 0}+"
+                     " more in the step list)")
+    return " ".join(parts)
+
+
+def node_details(tree: FlatTree, rb: Rollback, risk_tolerance) -> dict:
+    """Value, best branch and pruned branches of every node, in the objective's units."""
+    sign = tree.sign
+    names = {END: "end", CHANCE: "chance", DECISION: "decision"}
+    shown = rb.expected if rb.expected is not None else rb.value
+    out = {}
+    for i, nid in enumerate(tree.ids):
+        k = int(tree.kind[i])
+        entry = {"kind": names[k], "name": tree.names[i], "value": float(sign * shown[i]),
+                 "best_branch": None, "pruned": []}
+        if risk_tolerance:
+            entry["certainty_equivalent"] = float(sign * rb.value[i])
+        if k == DECISION:
+            b = int(rb.best[i])
+            entry["best_branch"] = tree.labels[b]
+            entry["pruned"] = [tree.labels[j] for j in _branches(tree, i) if j != b]
+        out[nid] = entry
+    return out
+
+
+def risk_profile(tree: FlatTree, rb: Rollback, max_points: int = 5000) -> dict:
+    """Distribution of the plan's outcome: points, cumulative, chance of loss, extremes."""
+    reach, acc = reach_probabilities(tree, rb.best)
+    ends = np.flatnonzero((tree.kind == END) & (reach > 0))
+    values = tree.sign * (acc[ends] + tree.payoff[ends])
+    return profile_from_outcomes(values, reach[ends], tree.objective, max_points)
+
+
+def profile_from_outcomes(values, probs, objective: str, max_points: int = 5000) -> dict:
+    """Aggregate equal outcomes, sort ascending, and summarise."""
+    values = np.asarray(values, dtype=float)
+    probs = np.asarray(probs, dtype=float)
+    uniq, inverse = np.unique(np.round(values, 9), return_inverse=True)
+    mass = np.bincount(inverse, weights=probs, minlength=len(uniq))
+    note = None
+    if len(uniq) > max_points:
+        # Keep the chart readable: merge neighbouring outcomes into equal-count groups.
+        groups = np.array_split(np.arange(len(uniq)), max_points)
+        uniq = np.array([np.average(uniq[g], weights=mass[g] + 1e-300) for g in groups])
+        mass = np.array([mass[g].sum() for g in groups])
+        note = f"outcomes merged into {max_points} groups for display"
+    cumulative = np.cumsum(mass)
+    expected = float(np.dot(values, probs))
+    out = {
+        "outcomes": [{"value": float(v), "probability": float(p)} for v, p in zip(uniq, mass,
+                                                                                     strict=True)],
+        "cumulative": [{"value": float(v), "probability": float(min(1.0, c))}
+                       for v, c in zip(uniq, cumulative, strict=True)],
+        "probability_of_loss": float(mass[uniq < 0].sum()) if objective == "max" else None,
+        "worst": float(uniq[0] if objective == "max" else uniq[-1]),
+        "best": float(uniq[-1] if objective == "max" else uniq[0]),
+        "expected": expected,
+    }
+    if note:
+        out["note"] = note
+    return out
+
+
+
+def learning_value(tree: FlatTree, node: int, base: Rollback, risk_tolerance=None) -> float:
+    """Value of learning chance node ``node`` before the first decision (internal units)."""
+    branches = list(_branches(tree, node))
+    vals, probs = [], []
+    for b in branches:
+        p = float(tree.prob[b])
+        if p <= 0:
+            continue
+        forced = tree.prob.copy()
+        forced[branches] = 0.0
+        forced[b] = 1.0
+        vals.append(float(rollback(tree, risk_tolerance=risk_tolerance, prob=forced).value[
+            tree.root]))
+        probs.append(p)
+    if risk_tolerance:
+        with_info = certainty_equivalent(vals, probs, risk_tolerance)
+    else:
+        with_info = float(np.dot(vals, probs))
+    return max(0.0, with_info - float(base.value[tree.root]))
+
+
+def clairvoyant_value(tree: FlatTree, risk_tolerance=None) -> float:
+    """Value of the tree when every chance node is revealed before the first decision."""
+    dist: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+    order = np.argsort(-tree.depth, kind="stable")
+    for node in order:
+        k = tree.kind[node]
+        if k == END:
+            dist[node] = (np.array([tree.payoff[node]]), np.array([1.0]))
+            continue
+        parts = []
+        for b in _branches(tree, node):
+            v, p = dist.pop(int(tree.child[b]))
+            parts.append((v + tree.cash[b], p * (tree.prob[b] if k == CHANCE else 1.0)))
+        if k == CHANCE:
+            v = np.concatenate([pv for pv, _ in parts])
+            p = np.concatenate([pp for _, pp in parts])
+            dist[node] = _merge(v, p)
+        else:
+            dist[node] = _max_of_independent(parts)
+    v, p = dist[tree.root]
+    if risk_tolerance:
+        return certainty_equivalent(v, p, risk_tolerance)
+    return float(np.dot(v, p))
+
+
+def _merge(v: np.ndarray, p: np.ndarray):
+    keep = p > 0
+    uniq, inv = np.unique(v[keep], return_inverse=True)
+    return uniq, np.bincount(inv, weights=p[keep], minlength=len(uniq))
+
+
+def _max_of_independent(parts):
+    support = np.unique(np.concatenate([v for v, _ in parts]))
+    cdf = np.ones(len(support))
+    for v, p in parts:
+        order = np.argsort(v)
+        cum = np.cumsum(p[order])
+        idx = np.searchsorted(v[order], support, side="right") - 1
+        cdf *= np.where(idx >= 0, cum[np.maximum(idx, 0)], 0.0)
+    pmf = np.diff(np.concatenate(([0.0], cdf)))
+    return _merge(support, np.clip(pmf, 0.0, None))

@@ -338,8 +338,13 @@ def _chance_ce(bv, p, starts, r) -> np.ndarray:
     masked = np.where(p > 0, bv, np.inf)
     m = np.minimum.reduceat(masked, starts)
     seg = np.repeat(np.arange(len(starts)), np.diff(np.append(starts, len(bv))))
-    total = np.add.reduceat(p * np.exp(-(bv - m[seg]) / r), starts)
-    return m - r * np.log(total)
+    # Branches of probability 0 are left out of the sum (their exponent may overflow).
+    exponent = np.where(p > 0, -(bv - m[seg]) / r, -np.inf)
+    total = np.add.reduceat(p * np.exp(exponent), starts)
+    # Decision nodes share the level's slice; their segments (all p = 0) give -inf
+    # here and are discarded by the caller, so the warning would be noise.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return m - r * np.log(total)
 
 
 def _decide(bv, starts, offset) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

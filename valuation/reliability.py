@@ -31,7 +31,10 @@ Choices (documented here because they change the figures)
     claim "never" is read as "almost never", one contrary record then moves
     the posterior mean to about 1/11 with the default strength. Raised cells
     are listed in ``floored_cells``; with none raised and no records the
-    posterior mean equals the claim exactly.
+    posterior mean equals the claim exactly. Such a tiny parameter makes the
+    marginal Beta so skewed that its equal-tailed interval can exclude the
+    mean (Beta(1, 0.01): mean 0.990, 5% quantile 0.994); read the interval,
+    not the mean, for a "never" claim.
 
 References
 ----------

@@ -61,6 +61,7 @@ import numpy as np
 from scipy import stats
 
 from valuation.errors import ModelValidationError, Problem
+from valuation.limits import PROBABILITY_SUM_TOLERANCE
 
 __all__ = [
     "DEFAULT_PRIOR_STRENGTH",
@@ -82,7 +83,7 @@ __all__ = [
 
 DEFAULT_PRIOR_STRENGTH = 10.0
 MIN_PRIOR_PARAMETER = 0.01
-ROW_SUM_TOLERANCE = 1e-6
+ROW_SUM_TOLERANCE = PROBABILITY_SUM_TOLERANCE  # 1e-6, the core's one tolerance
 DEFAULT_WINDOW = 10
 
 _ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")

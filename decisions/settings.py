@@ -133,6 +133,14 @@ REST_FRAMEWORK = {
     "DEFAULT_SCHEMA_CLASS": "drf_spectacular.openapi.AutoSchema",
     "DEFAULT_PAGINATION_CLASS": "rest_framework.pagination.PageNumberPagination",
     "PAGE_SIZE": 50,
+    # JSON only, through our strict parser (size, depth, NaN, duplicate keys, U+0000).
+    "DEFAULT_PARSER_CLASSES": ["decisions.api.parsers.StrictJSONParser"],
+    "EXCEPTION_HANDLER": "decisions.api.exceptions.api_exception_handler",
+    # Fairness limits, not a security boundary (enforce hard limits at the proxy).
+    "DEFAULT_THROTTLE_RATES": {
+        "token": os.environ.get("API_TOKEN_RATE", "20/min"),
+        "evaluate": os.environ.get("API_EVALUATE_RATE", "120/min"),
+    },
 }
 
 SPECTACULAR_SETTINGS = {

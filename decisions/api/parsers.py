@@ -1,0 +1,105 @@
+"""A strict JSON parser: bounded before parsing, strict while parsing.
+
+- The body is read with a cap of ``DATA_UPLOAD_MAX_MEMORY_SIZE`` + 1 bytes, so an
+  oversized body is refused without being held whole in memory.
+- Only UTF-8 is accepted: a client-chosen charset (``bz2_codec``...) could
+  otherwise expand the body after the size check.
+- Nesting deeper than :data:`MAX_DEPTH` is refused by a scan of the raw text
+  before ``json`` recurses (the interpreter's own recursion limit varies by
+  Python version and surfaces as a 500).
+- NaN, Infinity, duplicate keys and the character U+0000 are refused: jsonb
+  keeps the last of duplicate keys and rejects U+0000, so the stored copy and
+  the hashed canonical text could otherwise disagree.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+
+from django.conf import settings
+from rest_framework.exceptions import ParseError
+from rest_framework.parsers import JSONParser
+
+__all__ = ["MAX_DEPTH", "BodyProblem", "StrictJSONParser", "parse_strict_json"]
+
+MAX_DEPTH = 64
+_STRING = re.compile(r'"(?:[^"\\]|\\.)*"', re.DOTALL)
+_BRACKETS = re.compile(r"[\[\]{}]")
+
+
+class BodyProblem(ParseError):
+    """A malformed body, with the place in it (``location``) when known."""
+
+    def __init__(self, message: str, location: str = "body"):
+        self.location = location
+        super().__init__(message)
+
+
+def _reject_constant(name: str):
+    raise BodyProblem(f"{name} is not a valid JSON number; send a finite number")
+
+
+def _no_duplicates(pairs):
+    out = {}
+    for key, value in pairs:
+        if key in out:
+            raise BodyProblem(f"duplicate key {key!r} in one object")
+        out[key] = value
+    return out
+
+
+def _check_depth(text: str) -> None:
+    depth = 0
+    for match in _BRACKETS.finditer(_STRING.sub('""', text)):
+        depth += 1 if match.group() in "[{" else -1
+        if depth > MAX_DEPTH:
+            raise BodyProblem(f"must not nest deeper than {MAX_DEPTH} levels")
+
+
+def _check_nul(value, path: str = "body") -> None:
+    # Iterative walk: the depth is already bounded, but a list may be long.
+    stack = [(value, path)]
+    while stack:
+        item, where = stack.pop()
+        if isinstance(item, str):
+            if "\x00" in item:
+                raise BodyProblem("must not contain the character U+0000", location=where)
+        elif isinstance(item, dict):
+            for key, sub in item.items():
+                if "\x00" in key:
+                    raise BodyProblem("object keys must not contain U+0000", location=where)
+                stack.append((sub, f"{where}.{key}"))
+        elif isinstance(item, list):
+            stack.extend((sub, f"{where}[{i}]") for i, sub in enumerate(item))
+
+
+def parse_strict_json(raw: bytes):
+    """Decode and parse a body under the rules above; raise :class:`BodyProblem`."""
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise BodyProblem(f"must be UTF-8 text (byte {exc.start} is not)") from None
+    _check_depth(text)
+    try:
+        data = json.loads(text, object_pairs_hook=_no_duplicates, parse_constant=_reject_constant)
+    except BodyProblem:
+        raise
+    except (ValueError, RecursionError) as exc:
+        raise BodyProblem(f"is not valid JSON: {exc}") from None
+    _check_nul(data)
+    return data
+
+
+class StrictJSONParser(JSONParser):
+    def parse(self, stream, media_type=None, parser_context=None):
+        charset = (media_type or "").lower().partition("charset=")[2].strip().strip('"')
+        if charset and charset not in ("utf-8", "utf8"):
+            raise BodyProblem(f"charset {charset!r} is not accepted; send UTF-8 JSON")
+        limit = settings.DATA_UPLOAD_MAX_MEMORY_SIZE
+        raw = stream.read(limit + 1) if stream is not None else b""
+        if limit is not None and len(raw) > limit:
+            raise BodyProblem(f"must be at most {limit} bytes")
+        if not raw.strip():
+            return {}
+        return parse_strict_json(raw)

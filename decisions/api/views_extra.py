@@ -1,0 +1,115 @@
+"""Teams, the chain check, the stateless evaluator and the API documentation page."""
+
+from __future__ import annotations
+
+from django.http import HttpResponse
+from django.urls import reverse
+from django.utils.html import escape
+from drf_spectacular.types import OpenApiTypes
+from drf_spectacular.utils import extend_schema
+from rest_framework import mixins, viewsets
+from rest_framework.response import Response
+from rest_framework.throttling import ScopedRateThrottle
+from rest_framework.views import APIView
+
+from decisions.api import serializers as s
+from decisions.services.access import visible_teams
+from decisions.services.audit import verify_chain
+from decisions.services.evaluation import evaluate_document
+
+
+class TeamViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.GenericViewSet):
+    """Your teams and their members' roles."""
+
+    serializer_class = s.TeamSerializer
+
+    def get_queryset(self):
+        return visible_teams(self.request.user).prefetch_related("memberships__user")
+
+
+class AuditVerifyView(APIView):
+    """Walk the whole audit chain and report the first broken link, if any."""
+
+    @extend_schema(responses=OpenApiTypes.OBJECT)
+    def get(self, request):
+        return Response(verify_chain().as_dict())
+
+
+class EvaluateView(APIView):
+    """Validate and evaluate a model document; nothing is stored.
+
+    Answers the core's result document, the same as ``python -m valuation``'s
+    JSON output; a bad document gets 400 with every problem and its location.
+    """
+
+    throttle_scope = "evaluate"
+    throttle_classes = (ScopedRateThrottle,)
+
+    @extend_schema(request=s.EvaluateSerializer, responses=OpenApiTypes.OBJECT)
+    def post(self, request):
+        serializer = s.EvaluateSerializer(data=request.data)
+        serializer.is_valid(raise_exception=True)
+        data = serializer.validated_data
+        return Response(evaluate_document(data["document"], location="document",
+                                          risk_tolerance=data.get("risk_tolerance")))
+
+
+_DOCS_PAGE = """<!doctype html>
+<html lang="en"><head><meta charset="utf-8"><title>{title}</title>
+<style>
+body{{font-family:system-ui,sans-serif;margin:2rem auto;max-width:60rem;padding:0 1rem;color:#222}}
+h2{{border-bottom:1px solid #ccc;margin-top:2rem}} code{{background:#f4f4f4;padding:0 .2em}}
+.op{{margin:.8rem 0;padding:.5rem .8rem;border-left:4px solid #999}}
+.m{{font-weight:bold;display:inline-block;min-width:4.5em}} pre{{background:#f7f7f7;padding:.5rem;
+overflow:auto;font-size:.85em}} .note{{color:#555;font-size:.9em}}
+</style></head><body>
+<h1>{title}</h1>
+<p class="note">Figures the API returns are model outputs resting on the stated assumptions; weigh
+them with professional judgment and your organisation's own approval rules.</p>
+<p>Machine-readable schema: <a href="{schema}">{schema}</a> (OpenAPI 3). Authenticate with
+<code>Authorization: Token …</code> from <code>POST /api/token/</code> or a signed-in session.
+Changes to a decision need <code>If-Match</code> with its <code>ETag</code>.</p>
+<div id="ops">Loading the schema…</div>
+<script>
+fetch({schema_json}, {{headers: {{"Accept": "application/json"}}}})
+  .then(function (r) {{ return r.json(); }})
+  .then(function (schema) {{
+    var root = document.getElementById("ops"); root.textContent = "";
+    Object.keys(schema.paths).sort().forEach(function (path) {{
+      var h = document.createElement("h2"); h.textContent = path; root.appendChild(h);
+      var item = schema.paths[path];
+      Object.keys(item).forEach(function (method) {{
+        var op = item[method], div = document.createElement("div"); div.className = "op";
+        var m = document.createElement("span"); m.className = "m";
+        m.textContent = method.toUpperCase(); div.appendChild(m);
+        div.appendChild(document.createTextNode(op.summary || op.operationId || ""));
+        if (op.description) {{ var p = document.createElement("p");
+          p.textContent = op.description; div.appendChild(p); }}
+        (op.parameters || []).forEach(function (prm) {{
+          var p = document.createElement("div"); p.className = "note";
+          p.textContent = prm.in + " " + prm.name + (prm.required ? " (required)" : "") +
+            (prm.description ? ": " + prm.description : "");
+          div.appendChild(p); }});
+        if (op.requestBody) {{ var pre = document.createElement("pre");
+          pre.textContent = JSON.stringify(op.requestBody.content, null, 1).slice(0, 1500);
+          div.appendChild(pre); }}
+        var codes = document.createElement("div"); codes.className = "note";
+        codes.textContent = "responses: " + Object.keys(op.responses || {{}}).join(", ");
+        div.appendChild(codes); root.appendChild(div);
+      }});
+    }});
+  }})
+  .catch(function (e) {{ document.getElementById("ops").textContent =
+    "Could not load the schema: " + e; }});
+</script></body></html>"""
+
+
+def docs_page(request):
+    """API documentation rendered in the browser from our own schema (no CDN assets)."""
+    schema = reverse("api-schema") + "?format=json"
+    html = _DOCS_PAGE.format(title="Decision register API", schema=escape(schema),
+                             schema_json='"' + escape(schema) + '"')
+    return HttpResponse(html)
+
+
+__all__ = ["AuditVerifyView", "EvaluateView", "TeamViewSet", "docs_page"]

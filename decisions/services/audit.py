@@ -1,0 +1,209 @@
+"""Append to and verify the tamper-evident audit chain.
+
+Every state change calls :func:`append_event` inside its own
+``transaction.atomic()`` block, so the change and its event commit or roll
+back together. The acting user is always an explicit argument.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from collections.abc import Iterable
+from dataclasses import dataclass, field
+from typing import Any
+
+from django.db import transaction
+from django.utils import timezone
+
+from decisions.models import GENESIS_HASH, AuditEvent, ChainHead
+from valuation.canonical import canonical_json, sha256_hex
+
+__all__ = [
+    "ChainReport",
+    "append_event",
+    "event_envelope",
+    "read_checkpoint",
+    "verify_chain",
+    "verify_events",
+]
+
+
+def event_envelope(
+    *, seq: int, created_at: str, actor_id: int | None, actor_username: str, action: str,
+    object_type: str, object_id: str, payload_sha256: str, prev_hash: str,
+) -> dict[str, Any]:
+    """The fields an event's hash covers (its payload through the payload's own hash)."""
+    return {
+        "seq": seq,
+        "created_at": created_at,
+        "actor_id": actor_id,
+        "actor_username": actor_username,
+        "action": action,
+        "object_type": object_type,
+        "object_id": object_id,
+        "payload_sha256": payload_sha256,
+        "prev_hash": prev_hash,
+    }
+
+
+def append_event(*, actor, action: str, object_type: str, object_id, payload: dict) -> AuditEvent:
+    """Write one event at the head of the chain, in the caller's transaction."""
+    if not transaction.get_connection().in_atomic_block:
+        raise RuntimeError(
+            "append_event must run inside transaction.atomic(), together with the change "
+            "it records; wrap the service function's change in one atomic block"
+        )
+    # The race this lock prevents: two transactions read the same head, both
+    # compute seq n+1 with the same prev_hash, and the chain forks. Holding the
+    # head row's lock until commit makes appends strictly one after another.
+    # (SQLite ignores FOR UPDATE but serialises writers with its IMMEDIATE
+    # transactions; the unique seq and prev_hash constraints back both up.)
+    head = ChainHead.objects.select_for_update().get(pk=1)
+    canonical = canonical_json(payload)
+    created_at = timezone.now()
+    actor_id = actor.pk if actor is not None else None
+    actor_username = actor.get_username() if actor is not None else ""
+    envelope = event_envelope(
+        seq=head.seq + 1,
+        created_at=created_at.isoformat(),
+        actor_id=actor_id,
+        actor_username=actor_username,
+        action=action,
+        object_type=object_type,
+        object_id=str(object_id),
+        payload_sha256=hashlib.sha256(canonical).hexdigest(),
+        prev_hash=head.hash,
+    )
+    event = AuditEvent.objects.create(
+        seq=envelope["seq"],
+        created_at=created_at,
+        actor_id=actor_id,
+        actor_username=actor_username,
+        action=action,
+        object_type=object_type,
+        object_id=envelope["object_id"],
+        payload=json.loads(canonical),
+        payload_canonical=canonical.decode("utf-8"),
+        prev_hash=head.hash,
+        hash=sha256_hex(envelope),
+    )
+    head.seq = event.seq
+    head.hash = event.hash
+    head.save(update_fields=["seq", "hash"])
+    return event
+
+
+@dataclass
+class ChainReport:
+    """Outcome of a walk along the chain."""
+
+    count: int = 0
+    head_seq: int = 0
+    head_hash: str = GENESIS_HASH
+    problems: list[str] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return not self.problems
+
+    @property
+    def first_break(self) -> str | None:
+        return self.problems[0] if self.problems else None
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"ok": self.ok, "events": self.count, "head_seq": self.head_seq,
+                "head_hash": self.head_hash, "first_break": self.first_break}
+
+
+def verify_events(events: Iterable[Any]) -> ChainReport:
+    """Check links, sequence and hashes of events given in ascending ``seq`` order.
+
+    Stops at the first broken link (later links cannot be trusted after it).
+    ``events`` may be model instances or dicts with the same fields (an export).
+    """
+    report = ChainReport()
+    expected_seq, prev_hash = 1, GENESIS_HASH
+    for event in events:
+        get = event.get if isinstance(event, dict) else lambda name, e=event: getattr(e, name)
+        seq = get("seq")
+        where = f"event #{seq}"
+        canonical = get("payload_canonical")
+        created_at = get("created_at")
+        created_text = created_at if isinstance(created_at, str) else created_at.isoformat()
+        problem = None
+        if seq != expected_seq:
+            problem = (f"{where}: expected sequence number {expected_seq} "
+                       f"(an event is missing or out of order)")
+        elif get("prev_hash") != prev_hash:
+            problem = f"{where}: prev_hash does not match the hash of event #{expected_seq - 1}"
+        elif json.loads(canonical) != get("payload"):
+            problem = f"{where}: payload differs from the canonical text that was hashed"
+        else:
+            envelope = event_envelope(
+                seq=seq, created_at=created_text, actor_id=get("actor_id"),
+                actor_username=get("actor_username"), action=get("action"),
+                object_type=get("object_type"), object_id=get("object_id"),
+                payload_sha256=hashlib.sha256(canonical.encode("utf-8")).hexdigest(),
+                prev_hash=get("prev_hash"),
+            )
+            if sha256_hex(envelope) != get("hash"):
+                problem = f"{where}: hash does not match its content (the event was altered)"
+        if problem:
+            report.problems.append(problem)
+            return report
+        report.count += 1
+        report.head_seq, report.head_hash = seq, get("hash")
+        expected_seq, prev_hash = seq + 1, get("hash")
+    return report
+
+
+def verify_chain(*, checkpoint: dict | None = None, chunk_size: int = 2000) -> ChainReport:
+    """Walk the stored chain (streamed, never loaded whole) and check its head.
+
+    ``checkpoint`` is ``{"seq": n, "hash": h}`` written earlier by
+    ``audit_checkpoint``: the event with that sequence number must still exist
+    with that hash, which catches truncation and a wholesale rewrite that the
+    links alone cannot.
+    """
+    events = AuditEvent.objects.order_by("seq").iterator(chunk_size=chunk_size)
+    report = verify_events(events)
+    if not report.ok:
+        return report
+    head = ChainHead.objects.filter(pk=1).first()
+    if head is None:
+        report.problems.append("chain head: the head row is missing")
+    elif (head.seq, head.hash) != (report.head_seq, report.head_hash):
+        report.problems.append(
+            f"chain head: records #{head.seq} {head.hash[:12]}… but the last event is "
+            f"#{report.head_seq} {report.head_hash[:12]}… (events were removed or added)"
+        )
+    if checkpoint is not None and report.ok:
+        seq, expected = checkpoint["seq"], checkpoint["hash"]
+        stored = AuditEvent.objects.filter(seq=seq).values_list("hash", flat=True).first()
+        if seq > 0 and stored is None:
+            report.problems.append(
+                f"checkpoint: event #{seq} is missing (the chain was truncated)"
+            )
+        elif seq > 0 and stored != expected:
+            report.problems.append(
+                f"checkpoint: event #{seq} has hash {stored[:12]}…, the checkpoint recorded "
+                f"{expected[:12]}… (the chain was rewritten)"
+            )
+    return report
+
+
+def read_checkpoint(text: str) -> dict:
+    """Parse a checkpoint file written by ``audit_checkpoint``; refuse anything else."""
+    try:
+        data = json.loads(text)
+    except ValueError as exc:
+        raise ValueError(f"checkpoint: not valid JSON ({exc})") from None
+    if not isinstance(data, dict):
+        raise ValueError("checkpoint: must be a JSON object with 'seq' and 'hash'")
+    seq, digest = data.get("seq"), data.get("hash")
+    if not isinstance(seq, int) or isinstance(seq, bool) or seq < 0:
+        raise ValueError(f"checkpoint.seq: must be a whole number >= 0, got {seq!r}")
+    if not isinstance(digest, str) or len(digest) != 64:
+        raise ValueError("checkpoint.hash: must be 64 hexadecimal digits")
+    return {"seq": seq, "hash": digest}

@@ -89,7 +89,7 @@ def _sqlite_reverse() -> list[str]:
 def install(apps, schema_editor):
     vendor = schema_editor.connection.vendor
     if vendor == "postgresql":
-        schema_editor.execute(_pg_forward())
+        schema_editor.execute(_pg_forward(), params=None)
     elif vendor == "sqlite":
         for statement in _sqlite_forward():
             schema_editor.execute(statement)
@@ -100,7 +100,7 @@ def install(apps, schema_editor):
 def uninstall(apps, schema_editor):
     vendor = schema_editor.connection.vendor
     if vendor == "postgresql":
-        schema_editor.execute(_pg_reverse())
+        schema_editor.execute(_pg_reverse(), params=None)
     elif vendor == "sqlite":
         for statement in _sqlite_reverse():
             schema_editor.execute(statement)

@@ -194,11 +194,14 @@ def save_version(decision_id, *, actor, document: Any, if_match: str | None,
 
 def set_policy(decision_id, *, actor, if_match: str | None,
                requirements: dict[str, int]) -> SignOffPolicy:
-    """Replace the sign-off policy (draft only, so nobody moves the bar mid-review)."""
+    """Replace the sign-off policy (draft only, so nobody moves the bar mid-review).
+
+    The team's analysts may change it, and staff through the admin site.
+    """
     clean = _clean_policy(requirements)
     with transaction.atomic():
         decision = lock_decision(decision_id, actor=actor, if_match=if_match, roles=_EDITORS,
-                                 action="change the sign-off policy")
+                                 action="change the sign-off policy", staff_ok=True)
         if decision.status != Status.DRAFT:
             raise ConflictError(
                 f"decision: the sign-off policy can only change in draft, not {decision.status}",

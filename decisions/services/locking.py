@@ -19,19 +19,26 @@ def _etag_matches(if_match: str, etag: str) -> bool:
     return "*" in candidates or etag in candidates
 
 
-def lock_decision(decision_id, *, actor, if_match: str | None, roles, action: str) -> Decision:
+def lock_decision(decision_id, *, actor, if_match: str | None, roles, action: str,
+                  staff_ok: bool = False) -> Decision:
     """Lock the decision row for this transaction, then check role and ETag.
+
+    ``staff_ok`` lets a staff user act without a team role (the admin site's
+    policy editing); everyone else must be a member with one of ``roles``.
 
     The ETag is compared here, inside the transaction and under the lock, not
     before: two clients holding the same ETag queue on the lock, the first one
     changes ``lock_version``, and the second then sees the new value and gets
     412 instead of silently overwriting (a lost update).
     """
+    as_staff = staff_ok and actor is not None and actor.is_active and actor.is_staff
+    scope = Decision.objects.all() if as_staff else visible_decisions(actor)
     try:
-        decision = visible_decisions(actor).select_for_update().get(pk=decision_id)
+        decision = scope.select_for_update().get(pk=decision_id)
     except (Decision.DoesNotExist, ValueError, TypeError):
         raise NotFoundError("decision: not found") from None
-    require_role(actor, decision.team_id, roles, action)
+    if not as_staff:
+        require_role(actor, decision.team_id, roles, action)
     if if_match is None or not if_match.strip():
         raise PreconditionRequired(
             f"If-Match: required for {action}; read the decision first and send its ETag "

@@ -270,6 +270,10 @@ def test_row_within_tolerance_is_accepted_and_outside_is_refused():
             "records[0].date: must be a date, not a date and time, got datetime.datetime(2021, 3, 4, 12, 0)",
         ),
         ({"signal": "favourable", "state": "hot reservoir"}, "records[0].date: is missing"),
+        (
+            {"date": "٢٠٢١-٠٣-٠٤", "signal": "favourable", "state": "hot reservoir"},
+            "records[0].date: must be a date in the form YYYY-MM-DD, got '٢٠٢١-٠٣-٠٤'",
+        ),
     ],
 )
 def test_bad_records_are_refused_with_their_place(record, expected):
@@ -341,7 +345,7 @@ def claims_and_records(draw):
     return claim, records, strength
 
 
-@settings(max_examples=60, deadline=None)
+@settings(max_examples=60, deadline=None, derandomize=True)
 @given(claims_and_records())
 def test_property_posterior_rows_sum_to_one_and_intervals_hold_the_mean(case):
     claim, records, strength = case
@@ -361,7 +365,7 @@ def test_property_posterior_rows_sum_to_one_and_intervals_hold_the_mean(case):
                 assert low <= cell["posterior_mean"] <= high
 
 
-@settings(max_examples=60, deadline=None)
+@settings(max_examples=60, deadline=None, derandomize=True)
 @given(claims_and_records())
 def test_property_with_no_records_the_posterior_mean_is_the_claim(case):
     claim, _records, strength = case
@@ -373,7 +377,7 @@ def test_property_with_no_records_the_posterior_mean_is_the_claim(case):
             assert out["calibrated_likelihoods"][state][signal] == pytest.approx(p, abs=1e-12)
 
 
-@settings(max_examples=40, deadline=None)
+@settings(max_examples=40, deadline=None, derandomize=True)
 @given(st.integers(1, 9), st.integers(1, 5), st.floats(1.0, 50.0))
 def test_property_more_agreeing_data_narrows_the_interval(tenths, batches, strength):
     # Records in exactly the claimed proportion: the mean stays, the interval shrinks.

@@ -99,7 +99,7 @@ def test_log_score_of_an_event_forecast_impossible_is_minus_infinity():
     assert log_score([0.0, 0.5], [1, 1]) == -math.inf
 
 
-@settings(max_examples=100, deadline=None)
+@settings(max_examples=100, deadline=None, derandomize=True)
 @given(
     st.lists(
         st.tuples(st.sampled_from([0.0, 0.05, 0.2, 0.35, 0.5, 0.8, 1.0]), st.booleans()),
@@ -119,7 +119,7 @@ def test_property_murphy_identity_holds_for_random_data(pairs):
     assert out["brier"] == pytest.approx(brier_score(forecasts, outcomes))
 
 
-@settings(max_examples=50, deadline=None)
+@settings(max_examples=50, deadline=None, derandomize=True)
 @given(
     st.lists(st.floats(0.0, 1.0), min_size=1, max_size=50),
     st.randoms(use_true_random=False),
@@ -277,7 +277,7 @@ def test_bad_priors_are_refused_with_their_place(prior, expected):
     assert expected in [str(p) for p in excinfo.value.problems]
 
 
-@settings(max_examples=60, deadline=None)
+@settings(max_examples=60, deadline=None, derandomize=True)
 @given(
     st.lists(st.integers(1, 20), min_size=2, max_size=2),
     st.lists(st.tuples(st.sampled_from(["x", "y"]), st.sampled_from(["a", "b"])), max_size=30),

@@ -84,9 +84,13 @@ __all__ = [
 DEFAULT_PRIOR_STRENGTH = 10.0
 MIN_PRIOR_PARAMETER = 0.01
 ROW_SUM_TOLERANCE = PROBABILITY_SUM_TOLERANCE  # 1e-6, the core's one tolerance
+# Ten records: few enough that a change of the last two or three years shows, enough that
+# one unlucky study does not swing the window (its Beta posterior still has the claim's
+# ten pseudo-studies behind it).
 DEFAULT_WINDOW = 10
 
-_ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
+# ASCII digits only: \d would also match other scripts' digits.
+_ISO_DATE = re.compile(r"[0-9]{4}-[0-9]{2}-[0-9]{2}")
 
 
 @dataclass(frozen=True)

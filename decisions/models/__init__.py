@@ -17,6 +17,13 @@ from decisions.models.register import (
     SignOffPolicy,
     Status,
 )
+from decisions.models.sources import (
+    Outcome,
+    OutcomeForecast,
+    RecordOrigin,
+    StudyRecord,
+    StudySource,
+)
 from decisions.models.teams import SIGNING_ROLES, Membership, Role, Team
 
 __all__ = [
@@ -29,10 +36,15 @@ __all__ = [
     "Meaning",
     "Membership",
     "ModelVersion",
+    "Outcome",
+    "OutcomeForecast",
     "PolicyRequirement",
+    "RecordOrigin",
     "Role",
     "SignOff",
     "SignOffPolicy",
     "Status",
+    "StudyRecord",
+    "StudySource",
     "Team",
 ]

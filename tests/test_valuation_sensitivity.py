@@ -1,0 +1,371 @@
+"""Sensitivity analysis (valuation.sensitivity): sweeps, break-even values, tornado, two-way grid.
+
+Outside references: the published examples of /work/shared/reference/check-values.md
+(section named beside each check; break-even values there are "computed" from the
+published inputs, not printed in the sources), and the plain reference path that
+evaluates every point one by one through ``valuation.evaluate``.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from tests.strategies import payoff_tables, trees
+from valuation import evaluate
+from valuation.errors import ModelValidationError, ParameterError
+from valuation.evaluate import parse
+from valuation.parameters import RESCALING_NOTE, list_parameters, set_parameter
+from valuation.sensitivity import one_way, tornado, two_way
+
+FIXTURES = Path(__file__).resolve().parent.parent / "fixtures"
+# Invented demo models (Northfield Heat Cooperative, Tellurion Surveys are invented).
+TABLE = json.loads((FIXTURES / "heating_payoff_table.json").read_text())
+TREE = json.loads((FIXTURES / "heating_tree.json").read_text())
+
+
+def table(states, alternatives, studies=()):
+    return {"kind": "payoff_table", "title": "check",
+            "states": [{"name": n, "probability": p} for n, p in states],
+            "alternatives": [{"name": n, "payoffs": dict(pay)} for n, pay in alternatives],
+            "studies": list(studies)}
+
+
+# check-values.md sec. 3 (Hillier & Lieberman prototype example; memory, high confidence).
+OIL_LEASE = table([("oil", 0.25), ("dry", 0.75)],
+                  [("Drill", {"oil": 700, "dry": -100}), ("Sell", {"oil": 90, "dry": 90})])
+OIL_SURVEY = {"name": "Seismic survey", "cost": 30, "signals": ["favourable", "unfavourable"],
+              "likelihoods": {"oil": {"favourable": 0.6, "unfavourable": 0.4},
+                              "dry": {"favourable": 0.2, "unfavourable": 0.8}}}
+# check-values.md sec. 1 (Samuelson & Marks, ch. 13; inputs seen).
+SEISMIC = table([("wet", 0.4), ("dry", 0.6)],
+                [("Drill", {"wet": 600_000, "dry": -200_000}),
+                 ("Don't drill", {"wet": 0, "dry": 0})])
+SEISMIC_TREE = {"kind": "tree", "title": "seismic", "root": "d", "nodes": [
+    {"id": "d", "kind": "decision", "name": "Drill?", "branches": [
+        {"label": "Drill", "to": "c"}, {"label": "Don't drill", "to": "none"}]},
+    {"id": "c", "kind": "chance", "name": "Well", "branches": [
+        {"label": "wet", "probability": 0.4, "to": "wet"},
+        {"label": "dry", "probability": 0.6, "to": "dry"}]},
+    {"id": "wet", "kind": "end", "payoff": 600_000}, {"id": "dry", "kind": "end", "payoff": -200_000},
+    {"id": "none", "kind": "end", "payoff": 0}]}
+
+
+# -- the plain reference: one evaluate() per point -----------------------------------------
+
+
+def reference_label(doc, result):
+    """The plan label built from evaluate()'s policy steps (same format as the sweeps)."""
+    steps = result["policy"]["steps"]
+    if doc["kind"] == "payoff_table":
+        if not doc.get("studies"):
+            return steps[0]["choice"]
+        if steps[0]["choice"] == "No study":
+            return f"No study; {steps[1]['choice']}"
+        return f"{steps[0]['choice']}; " + ", ".join(
+            f"{s['when'][0]['outcome']}: {s['choice']}" for s in steps[1:])
+    tree = parse(doc)
+    ordered = sorted(steps, key=lambda s: (tree.depth[tree.ids.index(s["node"])],
+                                           tree.ids.index(s["node"])))
+    parts = [s["choice"] if s["node"] == doc["root"] else f"{s['name']}: {s['choice']}"
+             for s in ordered]
+    return "; ".join(parts) if parts else "(no decision)"
+
+
+def reference_points(doc, name, xs, r=None):
+    out = []
+    for x in xs:
+        result = evaluate(set_parameter(doc, name, float(x)), risk_tolerance=r)
+        value = result["certainty_equivalent"] if r else result["expected_value"]
+        out.append((value, reference_label(doc, result), result))
+    return out
+
+
+def close(a, b, rel=1e-9):
+    return abs(a - b) <= rel * max(1.0, abs(a), abs(b))
+
+
+def assert_matches_reference(doc, name, xs, r=None):
+    res = one_way(doc, name, xs, risk_tolerance=r)
+    ref = reference_points(doc, name, res["x"], r)
+    for m, (value, label, result) in enumerate(ref):
+        assert close(res["value"][m], value), (res["x"][m], res["value"][m], value)
+        assert close(res["expected_value"][m], result["expected_value"])
+        assert res["plan"][m] == label, (res["x"][m], res["plan"][m], label)
+        for alt in result["alternatives"]:
+            key = "certainty_equivalent" if r else "expected_value"
+            assert close(res["curves"]["alternatives"][alt["name"]][m], alt[key])
+    return res
+
+
+# -- published break-even values ----------------------------------------------------------
+
+
+def test_oil_lease_drilling_breaks_even_at_p_oil_190_over_800():
+    # sec. 3 inputs: 700 p - 100 (1 - p) = 90  =>  p = 190/800 = 0.2375 (computed).
+    res = one_way(OIL_LEASE, "states[0].probability")
+    assert len(res["break_even"]) == 1
+    be = res["break_even"][0]
+    assert abs(be["value"] - 190 / 800) <= 1e-9 * 0.2375
+    assert (be["from"], be["to"]) == ("Sell", "Drill")
+    assert be["problem_value"] == pytest.approx(90, abs=1e-6)
+
+
+def test_seismic_example_drilling_beats_not_drilling_above_p_wet_one_quarter():
+    # sec. 1 inputs: 600,000 p = 200,000 (1 - p)  =>  p = 0.25 (computed).
+    for doc, name in ((SEISMIC, "states[0].probability"),
+                      (SEISMIC_TREE, "nodes[1].branches[0].probability")):
+        res = one_way(doc, name, points=17)
+        assert [b["value"] for b in res["break_even"]] == [pytest.approx(0.25, rel=1e-9)]
+        assert res["break_even"][0]["to"] == "Drill"
+
+
+def test_oil_lease_survey_is_worth_buying_up_to_its_evsi_of_53():
+    # sec. 3: EV with free survey 153, EMV 100, so EVSI = 53: the survey is chosen while its
+    # fee is below 53 and dropped above it.
+    doc = dict(OIL_LEASE, studies=[OIL_SURVEY])
+    res = one_way(doc, "studies[0].cost", points=11, low=0, high=100)
+    assert [b["value"] for b in res["break_even"]] == [pytest.approx(53, rel=1e-9)]
+    be = res["break_even"][0]
+    assert be["from"] == "Seismic survey; favourable: Drill, unfavourable: Sell"
+    assert be["to"] == "No study; Drill"
+    assert (be["first_choice_from"], be["first_choice_to"]) == ("Seismic survey", "No study")
+    assert res["value"][0] == pytest.approx(153)  # sec. 3: free survey 153
+
+
+def test_oil_lease_selling_price_break_even_equals_the_emv_of_drilling():
+    # sec. 3: EMV of drilling 100, so selling wins once its payoff passes 100 in both states;
+    # sweeping its payoff if oil only: 0.25 x + 0.75 * 90 = 100 => x = 130 (computed).
+    res = one_way(OIL_LEASE, "alternatives[1].payoffs.oil", points=21, low=0, high=400)
+    assert [b["value"] for b in res["break_even"]] == [pytest.approx(130, rel=1e-9)]
+    assert (res["break_even"][0]["from"], res["break_even"][0]["to"]) == ("Drill", "Sell")
+
+
+# -- batched equals one by one ------------------------------------------------------------
+
+
+@pytest.mark.parametrize("doc", [TABLE, TREE], ids=["table", "tree"])
+@pytest.mark.parametrize("r", [None, 2_000_000.0])
+def test_every_input_of_the_demo_models_sweeps_like_evaluate_one_by_one(doc, r):
+    for p in list_parameters(doc):
+        xs = ([0.0, 0.3, 0.55, 1.0] if p["kind"] in ("probability", "likelihood")
+              else [p["base"] - 1e6, p["base"], p["base"] + 2.5e6])
+        if p["kind"] == "cost":
+            xs = [0.0, p["base"], 900_000.0]
+        assert_matches_reference(doc, p["name"], xs, r)
+
+
+@settings(max_examples=60, deadline=None)
+@given(doc=st.one_of(payoff_tables(), trees()), data=st.data(),
+       r=st.sampled_from([None, None, 80.0, 1000.0]))
+def test_batched_sweep_equals_evaluating_each_point(doc, data, r):
+    params = list_parameters(doc)
+    p = data.draw(st.sampled_from(params))
+    if p["kind"] in ("probability", "likelihood"):
+        xs = data.draw(st.lists(st.sampled_from([0.0, 0.125, 0.25, 0.5, 0.75, 1.0]), min_size=1,
+                                max_size=4))
+    else:
+        xs = data.draw(st.lists(st.integers(0 if p["kind"] == "cost" else -1000, 1000),
+                                min_size=1, max_size=4))
+    assert_matches_reference(doc, p["name"], xs, r)
+
+
+@settings(max_examples=40, deadline=None)
+@given(doc=st.one_of(payoff_tables(with_study=False), trees()), data=st.data())
+def test_at_a_break_even_value_the_two_first_choices_are_worth_the_same(doc, data):
+    p = data.draw(st.sampled_from(list_parameters(doc)))
+    res = one_way(doc, p["name"], points=9)
+    for be in res["break_even"]:
+        x = be["value"]
+        at = one_way(doc, p["name"], [x])
+        curves = at["curves"]["alternatives"]
+        a, b = be["first_choice_from"], be["first_choice_to"]
+        if doc["kind"] == "payoff_table":
+            a, b = be["from"], be["to"]
+        if a != b and a is not None:
+            assert close(curves[a][0], curves[b][0], rel=1e-7), (x, curves)
+        # the two plans are worth the same there, and the problem's value is continuous
+        assert close(be["value_from"], be["value_to"], rel=1e-9)
+        assert close(be["problem_value"], at["value"][0], rel=1e-7)
+
+
+def test_break_evens_lie_between_the_grid_points_whose_plans_differ():
+    res = one_way(TABLE, "states[0].probability", points=11)
+    plans = res["plan"]
+    changes = [m for m in range(len(plans) - 1) if plans[m] != plans[m + 1]]
+    assert len(res["break_even"]) == len(changes) == 2
+    for be, m in zip(res["break_even"], changes, strict=True):
+        assert res["x"][m] < be["value"] < res["x"][m + 1]
+        assert (be["from"], be["to"]) == (plans[m], plans[m + 1])
+        below = one_way(TABLE, "states[0].probability", [be["value"] * (1 - 1e-8)])["plan"][0]
+        above = one_way(TABLE, "states[0].probability", [be["value"] * (1 + 1e-8)])["plan"][0]
+        assert (below, above) == (be["from"], be["to"])
+
+
+def test_two_changes_between_neighbouring_points_are_both_found():
+    # With only the end points, P(hot) from 0 to 1 passes two changes of plan (no study ->
+    # seismic survey -> no study); the sweep must report both, not just the first.
+    res = one_way(TABLE, "states[0].probability", [0.0, 1.0])
+    wide = one_way(TABLE, "states[0].probability", points=401)
+    assert [round(b["value"], 9) for b in res["break_even"]] == \
+        [round(b["value"], 9) for b in wide["break_even"]]
+    assert len(res["break_even"]) >= 2
+
+
+def test_a_sweep_reports_curves_first_choices_and_the_rescaling_note():
+    res = one_way(TABLE, "states[0].probability", points=5)
+    assert res["x"] == [0.0, 0.25, 0.5, 0.75, 1.0]
+    assert set(res["curves"]["alternatives"]) == {"Deep geothermal well", "Shallow ground loop",
+                                                 "Stay on gas"}
+    assert set(res["curves"]["options"]) == {"No study", "Tellurion seismic survey",
+                                            "Exploratory borehole"}
+    assert res["first_choice"][0] == "No study"
+    assert res["best_alternative"][0] == "Shallow ground loop"
+    assert res["best_alternative"][-1] == "Deep geothermal well"
+    assert res["note"] == RESCALING_NOTE
+    assert one_way(TABLE, "studies[0].cost")["note"] == ""
+    json.dumps(res, allow_nan=False)  # plain floats, JSON-ready
+
+
+def test_default_money_range_is_zero_to_twice_the_base():
+    res = one_way(TABLE, "alternatives[0].payoffs.hot reservoir", points=3)
+    assert res["x"] == [0.0, 3_000_000.0, 6_000_000.0]
+
+
+def test_minimisation_tables_report_costs_and_the_cheapest_plan():
+    doc = table([("hot", 0.5), ("cold", 0.5)],
+                [("A", {"hot": 100, "cold": 300}), ("B", {"hot": 250, "cold": 200})])
+    doc["objective"] = "min"
+    res = one_way(doc, "states[0].probability", [0.0, 1.0])
+    assert res["value"] == [200.0, 100.0]
+    assert res["plan"] == ["B", "A"]
+    # 100 p + 300 (1 - p) = 250 p + 200 (1 - p)  =>  p = 0.4 (hand arithmetic)
+    assert res["break_even"][0]["value"] == pytest.approx(0.4, rel=1e-9)
+
+
+# -- tornado ------------------------------------------------------------------------------
+
+
+def test_tornado_default_ranges_and_values_match_evaluate():
+    rows = tornado(TABLE)
+    assert len(rows) == len(list_parameters(TABLE))
+    by = {row["name"]: row for row in rows}
+    prob = by["states[0].probability"]
+    assert (prob["low"], prob["high"]) == pytest.approx((0.3, 0.5))
+    pay = by["alternatives[0].payoffs.hot reservoir"]
+    assert (pay["low"], pay["high"]) == pytest.approx((2_400_000, 3_600_000))
+    zero = by["alternatives[2].payoffs.hot reservoir"]  # base 0: -/+ 20% of the largest amount
+    assert (zero["low"], zero["high"]) == pytest.approx((-600_000, 600_000))
+    lik = by["studies[0].likelihoods.hot reservoir.favourable"]
+    assert (lik["low"], lik["high"]) == pytest.approx((0.75, 0.95))
+    for row in rows:
+        for end in ("low", "high"):
+            ref = evaluate(set_parameter(TABLE, row["name"], row[end]))["expected_value"]
+            assert close(row[f"value_{end}"], ref)
+        assert row["swing"] == abs(row["value_high"] - row["value_low"])
+
+
+def test_tornado_clips_probabilities_and_costs_and_accepts_explicit_ranges():
+    rows = tornado(SEISMIC, probability_step=0.5,
+                   ranges={"alternatives[0].payoffs.wet": (0, 1_000_000)})
+    by = {row["name"]: row for row in rows}
+    assert (by["states[0].probability"]["low"], by["states[0].probability"]["high"]) == (0.0, 0.9)
+    assert (by["alternatives[0].payoffs.wet"]["low"], by["alternatives[0].payoffs.wet"]["high"]) \
+        == (0.0, 1_000_000.0)
+    cost = {r["name"]: r for r in tornado(TABLE, swing=2.0)}["studies[0].cost"]
+    assert cost["low"] == 0.0  # a fee is never negative
+
+
+def test_tornado_can_be_limited_to_some_inputs_and_uses_certainty_equivalents():
+    names = ["states[0].probability", "studies[0].cost"]
+    rows = tornado(TABLE, parameters=names, risk_tolerance=2_000_000)
+    assert {r["name"] for r in rows} == set(names)
+    for row in rows:
+        ref = evaluate(set_parameter(TABLE, row["name"], row["high"]), risk_tolerance=2_000_000)
+        assert close(row["value_high"], ref["certainty_equivalent"])
+
+
+@settings(max_examples=30, deadline=None)
+@given(doc=st.one_of(payoff_tables(), trees()))
+def test_tornado_swings_are_non_negative_and_sorted(doc):
+    rows = tornado(doc)
+    swings = [r["swing"] for r in rows]
+    assert all(s >= 0 for s in swings)
+    assert swings == sorted(swings, reverse=True)
+    assert len(rows) == len(list_parameters(doc))
+
+
+# -- two-way ------------------------------------------------------------------------------
+
+
+def test_two_way_grid_matches_evaluate_point_by_point():
+    xs, ys = [0.1, 0.4, 0.7, 0.95], [0.0, 150_000.0, 600_000.0]
+    grid = two_way(TABLE, "states[0].probability", xs, "studies[0].cost", ys)
+    assert grid["x"]["values"] == xs and grid["y"]["values"] == ys
+    assert len(grid["best"]) == len(ys) and len(grid["best"][0]) == len(xs)
+    for i, y in enumerate(ys):
+        for j, x in enumerate(xs):
+            doc = set_parameter(set_parameter(TABLE, "states[0].probability", x), "studies[0].cost", y)
+            result = evaluate(doc)
+            assert grid["labels"][grid["best"][i][j]] == reference_label(doc, result)
+            assert close(grid["value"][i][j], result["expected_value"])
+    assert grid["note"] == RESCALING_NOTE
+
+
+def test_two_way_on_a_tree_with_risk_tolerance_matches_evaluate():
+    xs, ys = [0.2, 0.5, 0.8], [-2_000_000.0, -800_000.0]
+    grid = two_way(TREE, "nodes[1].branches[0].probability", xs, "nodes[2].branches[0].cash_flow",
+                   ys, risk_tolerance=3_000_000)
+    for i, y in enumerate(ys):
+        for j, x in enumerate(xs):
+            doc = set_parameter(set_parameter(TREE, "nodes[1].branches[0].probability", x),
+                                "nodes[2].branches[0].cash_flow", y)
+            result = evaluate(doc, risk_tolerance=3_000_000)
+            assert grid["labels"][grid["best"][i][j]] == reference_label(doc, result)
+            assert close(grid["value"][i][j], result["certainty_equivalent"])
+
+
+# -- bad input ----------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(("call", "message"), [
+    (lambda: one_way(TABLE, "states[9].probability"),
+     "states[9].probability: not an input of this model (list_parameters names every input)"),
+    (lambda: one_way(TABLE, "states[0].probability", points=1),
+     "points: must be a whole number within [2, 100000], got 1"),
+    (lambda: one_way(TABLE, "states[0].probability", low=0.6, high=0.2),
+     "states[0].probability: the low end must be below the high end, got 0.6 and 0.2"),
+    (lambda: one_way(TABLE, "states[0].probability", [0.2, 1.5]),
+     "states[0].probability: must be within [0, 1], got 1.5"),
+    (lambda: one_way(TABLE, "studies[0].cost", [-1.0]), "studies[0].cost: must be zero or more, got -1"),
+    (lambda: one_way(TABLE, "studies[0].cost", risk_tolerance=-5),
+     "risk_tolerance: must be a positive finite number, got -5"),
+    (lambda: tornado(TABLE, swing=0), "swing: must be a positive number, got 0"),
+    (lambda: tornado(TABLE, ranges={"nope": (0, 1)}),
+     "nope: not an input of this model (list_parameters names every input)"),
+    (lambda: two_way(TABLE, "studies[0].cost", [1], "studies[0].cost", [2]),
+     "studies[0].cost: the two parameters of a two-way grid must differ"),
+    (lambda: two_way(TABLE, "states[0].probability", [0.1], "states[1].probability", [0.2]),
+     "states[1].probability: same chance node or likelihood row as states[0].probability; "
+     "setting one rescales the other, so they cannot vary independently"),
+])
+def test_bad_sensitivity_requests_are_refused_with_exact_messages(call, message):
+    with pytest.raises(ParameterError) as info:
+        call()
+    assert str(info.value) == message
+
+
+def test_likelihoods_of_different_states_may_form_a_two_way_grid():
+    grid = two_way(TABLE, "studies[0].likelihoods.hot reservoir.favourable", [0.5, 0.9],
+                   "studies[0].likelihoods.cold reservoir.favourable", [0.1, 0.4])
+    assert np.array(grid["best"]).shape == (2, 2)
+
+
+def test_an_invalid_model_is_refused_before_any_sweep():
+    with pytest.raises(ModelValidationError):
+        one_way({"kind": "payoff_table"}, "states[0].probability")

@@ -1,0 +1,128 @@
+"""Bad input gets 400 with located messages, never a 500; hostile JSON is refused early."""
+
+import json
+
+import pytest
+
+from tests.personas import small_table
+
+pytestmark = pytest.mark.django_db
+
+
+def _post_raw(client, url, body: bytes, content_type="application/json"):
+    return client.generic("POST", url, body, content_type=content_type)
+
+
+@pytest.mark.parametrize(("body", "location", "message"), [
+    (b'{"a": NaN}', "body", "NaN is not a valid JSON number; send a finite number"),
+    (b'{"a": Infinity}', "body", "Infinity is not a valid JSON number; send a finite number"),
+    (b'{"a": 1, "a": 2}', "body", "duplicate key 'a' in one object"),
+    (b'{"document": {"title": "x\\u0000"}}', "body.document.title",
+     "must not contain the character U+0000"),
+    (b"[" * 65 + b"]" * 65, "body", "must not nest deeper than 64 levels"),
+    (b"[" * 20000 + b"]" * 20000, "body", "must not nest deeper than 64 levels"),
+    (b'{"a": "\xff"}', "body", "must be UTF-8 text (byte 7 is not)"),
+    (b'{"a": ', "body", "is not valid JSON: Expecting value: line 1 column 7 (char 6)"),
+])
+def test_hostile_json_is_refused_with_a_located_message(people, client_for, body, location,
+                                                        message):
+    response = _post_raw(client_for(people.ana), "/api/evaluate/", body)
+    assert response.status_code == 400
+    assert response.json() == {"errors": [{"location": location, "message": message}],
+                               "code": "invalid_body"}
+
+
+def test_strings_that_look_like_brackets_do_not_count_as_nesting(people, client_for):
+    doc = small_table(title="[" * 100)
+    response = client_for(people.ana).post("/api/evaluate/", {"document": doc}, format="json")
+    assert response.status_code == 200, response.data
+
+
+def test_an_oversized_body_is_refused(people, client_for, settings):
+    settings.DATA_UPLOAD_MAX_MEMORY_SIZE = 2048
+    body = json.dumps({"document": {"title": "x" * 4096}}).encode()
+    response = _post_raw(client_for(people.ana), "/api/evaluate/", body)
+    assert response.status_code == 400
+
+
+def test_a_foreign_charset_is_refused(people, client_for):
+    response = _post_raw(client_for(people.ana), "/api/evaluate/", b"{}",
+                         content_type="application/json; charset=bz2_codec")
+    assert response.status_code == 400
+    assert response.json()["errors"][0]["message"] == \
+        "charset 'bz2_codec' is not accepted; send UTF-8 JSON"
+
+
+def test_form_bodies_are_not_accepted(people, client_for):
+    response = client_for(people.ana).post("/api/evaluate/", {"document": "x"})
+    assert response.status_code == 415
+
+
+@pytest.mark.parametrize(("change", "location", "message"), [
+    ({"states": [{"name": "hot", "probability": 1.2}, {"name": "cold", "probability": 0.6}]},
+     "document.states[0].probability", "must be within [0, 1], got 1.2"),
+    ({"objective": "most"}, "document.objective", None),
+    ({"alternatives": []}, "document.alternatives", None),
+])
+def test_an_invalid_model_gets_the_cores_messages(people, client_for, change, location,
+                                                   message):
+    import valuation
+
+    doc = small_table(**change)
+    expected = [{"location": f"document.{p.location}", "message": p.message}
+                for p in valuation.validate(doc)]
+    response = client_for(people.ana).post("/api/evaluate/", {"document": doc}, format="json")
+    assert response.status_code == 400
+    assert response.data["errors"] == expected
+    assert location in [e["location"] for e in expected]
+    if message:
+        assert {"location": location, "message": message} in expected
+
+
+def test_evaluate_returns_the_cores_result_document(people, client_for):
+    import valuation
+
+    doc = small_table()
+    response = client_for(people.vic).post("/api/evaluate/", {"document": doc}, format="json")
+    assert response.status_code == 200
+    # Same document as the core's own output (JSON round trip of plain floats).
+    assert response.json() == json.loads(json.dumps(valuation.evaluate(doc)))
+    # Expected value without information: max(0.4*9e6 + 0.6*(-1e6), 2.5e6) = 3.0e6,
+    # worked by hand (common practice: expected value of each alternative).
+    assert response.json()["without_information"]["expected_value"] == pytest.approx(3.0e6)
+
+
+@pytest.mark.parametrize(("body", "errors"), [
+    ({"team": "x", "title": "t"}, [{"location": "team", "message": "A valid integer is required."}]),
+    ({"team": 1, "title": ""}, [{"location": "title", "message": "This field may not be blank."}]),
+    ({"team": 1, "title": "t", "status": "approved"},
+     [{"location": "status", "message": "is not an accepted field here"}]),
+    ({"team": 1, "title": "t", "policy": {"chief": 1}},
+     [{"location": "policy.chief", "message": "must be one of the signing roles "
+       "'financial review', 'operations', 'budget holder'"}]),
+    ({"team": 1, "title": "t", "policy": {"operations": 0}},
+     [{"location": "policy.operations", "message": "must be within [1, 10], got 0"}]),
+])
+def test_bad_decision_input_is_located(people, client_for, body, errors):
+    if body.get("team") == 1:
+        body["team"] = people.team.pk
+    response = client_for(people.ana).post("/api/decisions/", body, format="json")
+    assert response.status_code == 400
+    assert response.data["errors"] == errors
+
+
+@pytest.mark.parametrize(("query", "location"), [
+    ("status=pending", "status"), ("team=x", "team"), ("created_after=yesterday", "created_after"),
+])
+def test_bad_filters_get_400(people, client_for, query, location):
+    response = client_for(people.ana).get(f"/api/decisions/?{query}")
+    assert response.status_code == 400
+    assert response.data["errors"][0]["location"] == location
+
+
+def test_filters_select_by_status_and_owner(draft, people, client_for):
+    client = client_for(people.vic)
+    assert client.get("/api/decisions/?status=draft").data["count"] == 1
+    assert client.get("/api/decisions/?status=closed").data["count"] == 0
+    assert client.get("/api/decisions/?owner=ana").data["count"] == 1
+    assert client.get(f"/api/decisions/?team={people.team.pk}").data["count"] == 1

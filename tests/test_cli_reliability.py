@@ -178,3 +178,23 @@ def test_the_module_entry_point_prints_no_traceback_on_bad_input(tmp_path):
     assert result.returncode == 2
     assert "header: missing columns date, signal, state" in result.stderr
     assert "Traceback" not in result.stderr
+
+
+def test_a_long_record_gets_a_step_that_keeps_the_rolling_report_small(tmp_path, capsys):
+    rows = ["date,signal,state"] + [
+        f"{2000 + i // 360}-{1 + (i // 30) % 12:02d}-{1 + i % 28:02d},favourable,hot reservoir,{i}"
+        for i in range(6_000)
+    ]
+    path = tmp_path / "long.csv"
+    path.write_text("date,signal,state,n\n" + "\n".join(rows[1:]) + "\n")
+    code, out, err = run_cli(capsys, path, "--claimed", CLAIMED, "--window", "20", "--json")
+    assert code == 0, err
+    roll = json.loads(out)["rolling"]
+    # 5,981 windows at step 1; the least step keeping to 5,000 is ceil(5,981 / 5,000) = 2.
+    assert roll["step"] == 2 and len(roll["windows"]) == 2991
+    code, _, err = run_cli(capsys, path, "--claimed", CLAIMED, "--window", "20", "--step", "1")
+    assert code == 2
+    assert err == (
+        "error: --step: 5,981 windows of 20 records is more than 5,000; "
+        "use a step of at least 2\n"
+    )

@@ -19,6 +19,7 @@ from scipy import stats
 from valuation.errors import ModelValidationError, Problem
 from valuation.reliability import (
     DEFAULT_PRIOR_STRENGTH,
+    MAX_ROLLING_WINDOWS,
     MIN_PRIOR_PARAMETER,
     Record,
     calibrate,
@@ -447,3 +448,19 @@ def test_rolling_with_fewer_records_than_the_window_gives_no_windows():
 def test_rolling_refuses_bad_window_or_step(window, step):
     with pytest.raises(ModelValidationError):
         rolling(CLAIM, [], window=window, step=step)
+
+
+def test_rolling_refuses_more_windows_than_the_limit_and_names_the_least_step():
+    n = MAX_ROLLING_WINDOWS + 100
+    records = [
+        Record(dt.date(2000, 1, 1) + dt.timedelta(days=i), "favourable", "hot reservoir")
+        for i in range(n)
+    ]
+    with pytest.raises(ModelValidationError) as excinfo:
+        rolling(CLAIM, records, window=10)
+    assert [str(p) for p in excinfo.value.problems] == [
+        "step: 5,091 windows of 10 records is more than 5,000; use a step of at least 2"
+    ]
+    out = rolling(CLAIM, records, window=10, step=2)
+    assert len(out["windows"]) == 2546
+    assert out["windows"][-1]["end_date"] == records[-1].date.isoformat()

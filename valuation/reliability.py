@@ -66,6 +66,7 @@ from valuation.limits import PROBABILITY_SUM_TOLERANCE
 __all__ = [
     "DEFAULT_PRIOR_STRENGTH",
     "DEFAULT_WINDOW",
+    "MAX_ROLLING_WINDOWS",
     "MIN_PRIOR_PARAMETER",
     "ROW_SUM_TOLERANCE",
     "Record",
@@ -88,6 +89,9 @@ ROW_SUM_TOLERANCE = PROBABILITY_SUM_TOLERANCE  # 1e-6, the core's one tolerance
 # one unlucky study does not swing the window (its Beta posterior still has the claim's
 # ten pseudo-studies behind it).
 DEFAULT_WINDOW = 10
+#: :func:`rolling` refuses to build more windows than this (each is a full report; 5,000
+#: windows take about a second); a larger ``step`` thins them.
+MAX_ROLLING_WINDOWS = 5_000
 
 # ASCII digits only: \d would also match other scripts' digits.
 _ISO_DATE = re.compile(r"[0-9]{4}-[0-9]{2}-[0-9]{2}")
@@ -268,7 +272,18 @@ def parse_records(
     problems: list[Problem] = []
     out: list[Record] = []
     known = {"state": list(states), "signal": list(signals)}
+    state_set, signal_set = set(states), set(signals)
     for i, rec in enumerate(records):
+        # Fast path for records already parsed (the CSV reader's output): only the names
+        # need checking against this table.
+        if (
+            type(rec) is Record
+            and type(rec.date) is _dt.date
+            and rec.state in state_set
+            and rec.signal in signal_set
+        ):
+            out.append(rec)
+            continue
         where = f"{name}[{i}]"
         values: dict[str, Any] = {}
         for key in ("date", "signal", "state"):
@@ -437,34 +452,47 @@ def _posterior_arrays(
     }
 
 
+def _as_lists(matrix: np.ndarray, counts: np.ndarray, arrays: dict[str, np.ndarray]) -> dict:
+    """Plain nested lists of the figures, converted once: building per-window dicts from
+    numpy scalars one by one was the bottleneck of :func:`rolling` (about 100 us a window)."""
+    names = ("post", "mean", "low", "high", "below")
+    out = {name: arrays[name].tolist() for name in names}
+    out["counts"] = counts.tolist()
+    out["claimed"] = matrix.tolist()
+    out["prior"] = arrays["prior"].tolist()
+    out["top"] = arrays["top"].tolist()
+    return out
+
+
 def _state_blocks(
-    states: list[str],
-    signals: list[str],
-    matrix: np.ndarray,
-    counts: np.ndarray,
-    arrays: dict[str, np.ndarray],
-    key: str,
-    index: tuple = (),
+    states: list[str], signals: list[str], lists: dict, key: str, w: int | None = None
 ) -> dict[str, Any]:
+    """Per-state report of one calibration (``w`` selects a window of :func:`rolling`)."""
+
+    def pick(name: str) -> list:
+        return lists[name] if w is None else lists[name][w]
+
+    c, post, mean, low, high, below = (
+        pick(n) for n in ("counts", "post", "mean", "low", "high", "below")
+    )
     out: dict[str, Any] = {}
-    c = counts[index]
     for i, state in enumerate(states):
-        n_state = c[i].sum()
+        n_state = sum(c[i])
         cells = {}
         for k, signal in enumerate(signals):
             cells[signal] = {
-                "claimed": float(matrix[i, k]),
-                "observed": float(c[i, k] / n_state) if n_state else None,
-                "count": int(c[i, k]),
-                "prior_parameter": float(arrays["prior"][i, k]),
-                "posterior_parameter": float(arrays["post"][index][i, k]),
-                "posterior_mean": float(arrays["mean"][index][i, k]),
-                key: [float(arrays["low"][index][i, k]), float(arrays["high"][index][i, k])],
+                "claimed": lists["claimed"][i][k],
+                "observed": c[i][k] / n_state if n_state else None,
+                "count": int(c[i][k]),
+                "prior_parameter": lists["prior"][i][k],
+                "posterior_parameter": post[i][k],
+                "posterior_mean": mean[i][k],
+                key: [low[i][k], high[i][k]],
             }
         out[state] = {
             "records": int(n_state),
-            "most_likely_signal": signals[int(arrays["top"][i])],
-            "prob_below_claim": float(arrays["below"][index][i]),
+            "most_likely_signal": signals[lists["top"][i]],
+            "prob_below_claim": below[i],
             "signals": cells,
         }
     return out
@@ -485,7 +513,9 @@ def _calibration_report(
         "prior_strength": strength,
         "interval": mass,
         "records": int(n_records),
-        "states": _state_blocks(states, signals, matrix, counts, arrays, _interval_key(mass)),
+        "states": _state_blocks(
+            states, signals, _as_lists(matrix, counts, arrays), _interval_key(mass)
+        ),
         "calibrated_likelihoods": {
             s: {k: float(mean[i, j]) for j, k in enumerate(signals)} for i, s in enumerate(states)
         },
@@ -652,20 +682,23 @@ def score_record(
     prior_vec, source = _check_prior(prior, states)
     recs = parse_records(records, states, signals)
     sc = _record_scores(matrix, prior_vec, states, signals, recs)
-    per_record = []
-    for n, r in enumerate(recs):
-        per_record.append(
-            {
-                "date": r.date.isoformat(),
-                "signal": r.signal,
-                "state": r.state,
-                "posterior": {s: float(sc["post"][n, i]) for i, s in enumerate(states)},
-                "prob_true_state": float(sc["p_true"][n]),
-                "hit": float(sc["hit"][n]),
-                "brier": float(sc["brier"][n]),
-                "log_score": float(sc["log"][n]),
-            }
-        )
+    # Plain lists first: indexing numpy arrays scalar by scalar is slow on big records.
+    post, p_true, hit, brier, logs = (
+        sc[k].tolist() for k in ("post", "p_true", "hit", "brier", "log")
+    )
+    per_record = [
+        {
+            "date": r.date.isoformat(),
+            "signal": r.signal,
+            "state": r.state,
+            "posterior": dict(zip(states, post[n], strict=True)),
+            "prob_true_state": p_true[n],
+            "hit": hit[n],
+            "brier": brier[n],
+            "log_score": logs[n],
+        }
+        for n, r in enumerate(recs)
+    ]
     return {
         "records": len(recs),
         "prior": {s: float(prior_vec[i]) for i, s in enumerate(states)},
@@ -873,7 +906,8 @@ def rolling(
     window : int, default ``DEFAULT_WINDOW`` (10)
         Records per window, at least 1.
     step : int, default 1
-        Records between consecutive window ends, at least 1.
+        Records between consecutive window ends, at least 1; at most
+        ``MAX_ROLLING_WINDOWS`` windows are built.
     prior : mapping or None
         Prior over states for the scores; None means uniform.
 
@@ -907,6 +941,18 @@ def rolling(
     }
     if n < window:
         return out
+    n_windows = (n - window) // step + 1
+    if n_windows > MAX_ROLLING_WINDOWS:
+        least = -(-(n - window + 1) // MAX_ROLLING_WINDOWS)
+        raise ModelValidationError(
+            [
+                Problem(
+                    "step",
+                    f"{n_windows:,} windows of {window} records is more than "
+                    f"{MAX_ROLLING_WINDOWS:,}; use a step of at least {least}",
+                )
+            ]
+        )
     si = {s: i for i, s in enumerate(states)}
     ki = {k: j for j, k in enumerate(signals)}
     cells = np.zeros((n + 1, len(states), len(signals)))
@@ -930,16 +976,18 @@ def rolling(
     brier = window_means(sc["brier"])
     logs = window_means(sc["log"])
     key = _interval_key(mass)
-    for w, end in enumerate(ends):
+    lists = _as_lists(matrix, counts, arrays)
+    hit_l, brier_l, logs_l = hit.tolist(), brier.tolist(), logs.tolist()
+    for w, end in enumerate(ends.tolist()):
         out["windows"].append(
             {
                 "start_date": recs[end - window].date.isoformat(),
                 "end_date": recs[end - 1].date.isoformat(),
                 "records": int(window),
-                "hit_rate": float(hit[w]),
-                "brier": float(brier[w]),
-                "log_score": float(logs[w]),
-                "states": _state_blocks(states, signals, matrix, counts, arrays, key, (w,)),
+                "hit_rate": hit_l[w],
+                "brier": brier_l[w],
+                "log_score": logs_l[w],
+                "states": _state_blocks(states, signals, lists, key, w),
             }
         )
     return out

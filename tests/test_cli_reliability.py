@@ -198,3 +198,32 @@ def test_a_long_record_gets_a_step_that_keeps_the_rolling_report_small(tmp_path,
         "error: --step: 5,981 windows of 20 records is more than 5,000; "
         "use a step of at least 2\n"
     )
+
+
+def test_a_prior_file_is_used_for_the_scores(tmp_path, capsys):
+    prior = tmp_path / "prior.json"
+    prior.write_text('{"hot reservoir": 0.4, "cold reservoir": 0.6}')
+    code, out, _ = run_cli(capsys, RECORDS, "--claimed", CLAIMED, "--prior", prior, "--json")
+    assert code == 0
+    doc = json.loads(out)
+    claimed = json.loads(CLAIMED.read_text())
+    expected = score_record(
+        claimed, {"hot reservoir": 0.4, "cold reservoir": 0.6}, read_records_csv(RECORDS)
+    )
+    assert doc["prior_source"] == "given"
+    assert doc["brier"] == pytest.approx(expected["brier"])
+    prior.write_text('{"hot reservoir": 0.4, "cold reservoir": 0.7}')
+    code, _, err = run_cli(capsys, RECORDS, "--claimed", CLAIMED, "--prior", prior)
+    assert code == 2
+    assert err == f"error: {prior}: prior: probabilities must sum to 1 (within 1e-6), got 1.1\n"
+
+
+def test_help_describes_the_files():
+    result = subprocess.run(
+        [sys.executable, "-m", "valuation", "reliability", "--help"],
+        capture_output=True,
+        text=True,
+        cwd=ROOT,
+    )
+    assert result.returncode == 0
+    assert "CLAIMED.json" in result.stdout and "--prior-strength" in result.stdout

@@ -159,8 +159,14 @@ def _compute(args) -> dict[str, Any]:
     try:
         scores = score_record(claimed, prior, records)
     except ModelValidationError as exc:
-        where = args.prior or args.records
-        raise _FileProblems(_with_file(where, exc.problems)) from None
+        # Prior problems belong to the prior file; the rest (a signal the claim gives
+        # probability 0 everywhere) to the records, counted from 0 in file order.
+        raise _FileProblems(
+            [
+                f"{args.prior if p.location.startswith('prior') else args.records}: {p}"
+                for p in exc.problems
+            ]
+        ) from None
     result: dict[str, Any] = {
         "caution": CAUTION,
         "prior_strength": calibration["prior_strength"],

@@ -9,6 +9,7 @@ evaluates every point one by one through ``valuation.evaluate``.
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 import numpy as np
@@ -297,7 +298,22 @@ def test_tornado_swings_are_non_negative_and_sorted(doc):
     swings = [r["swing"] for r in rows]
     assert all(s >= 0 for s in swings)
     assert swings == sorted(swings, reverse=True)
-    assert len(rows) == len(list_parameters(doc))
+    expected = [p["name"] for p in list_parameters(doc)
+                if p["kind"] != "cash_flow" or branch_gives_cash_flow(doc, p["name"])]
+    assert sorted(r["name"] for r in rows) == sorted(expected)
+
+
+def branch_gives_cash_flow(doc, name):
+    i, j = (int(v) for v in re.findall(r"\[(\d+)\]", name))
+    return "cash_flow" in doc["nodes"][i]["branches"][j]
+
+
+def test_tornado_leaves_out_tree_cash_flows_the_document_does_not_give():
+    names = {r["name"] for r in tornado(TREE)}
+    assert "nodes[0].branches[0].cash_flow" in names  # given: -1,600,000
+    assert "nodes[1].branches[0].cash_flow" not in names  # absent (0 by default)
+    assert "nodes[1].branches[0].cash_flow" in {r["name"] for r in tornado(
+        TREE, parameters=["nodes[1].branches[0].cash_flow"])}
 
 
 # -- two-way ------------------------------------------------------------------------------

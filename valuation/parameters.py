@@ -80,6 +80,7 @@ class Parameter:
     row_base: tuple[float, ...] = ()
     position: int = 0  # position of this parameter within ``row``
     divisor: float | None = None
+    given: bool = True  # False for a branch cash flow the document leaves out (0 by default)
 
     def as_dict(self) -> dict:
         return {"name": self.name, "label": self.label, "kind": self.kind, "base": self.base,
@@ -170,7 +171,7 @@ def _tree_specs(doc: dict, tree: FlatTree) -> list[Parameter]:
             specs.append(Parameter(
                 f"nodes[{i}].branches[{j}].cash_flow", f"Cash flow of '{br['label']}' at {name}",
                 "cash_flow", float(br.get("cash_flow", 0)), None, None, ("cash", first + j),
-                divisor=_divisor(rate, br.get("time"))))
+                divisor=_divisor(rate, br.get("time")), given="cash_flow" in br))
     return specs
 
 

@@ -40,7 +40,7 @@ from valuation.parameters import (
 from valuation.table import PayoffTable
 from valuation.utility import check_risk_tolerance
 
-__all__ = ["one_way", "tornado", "two_way", "default_range", "BREAK_EVEN_RTOL",
+__all__ = ["one_way", "tornado", "two_way", "sweep_points", "default_range", "BREAK_EVEN_RTOL",
            "MAX_GRID_POINTS", "MAX_POINTS"]
 
 #: Break-even values are bisected until the bracket is this narrow, relative to the value.
@@ -84,6 +84,28 @@ def _sweep_range(spec: Parameter, scale: float) -> tuple[float, float]:
     if spec.kind in PROBABILITY_KINDS:
         return 0.0, 1.0
     return default_range(spec, scale, swing=1.0)
+
+
+def _grid(model, specs: list[Parameter], spec: Parameter, points, low, high) -> np.ndarray:
+    if isinstance(points, bool) or not isinstance(points, int) or not 2 <= points <= MAX_POINTS:
+        raise ParameterError(f"points: must be a whole number within [2, {MAX_POINTS}], "
+                             f"got {points!r}")
+    d_low, d_high = _sweep_range(spec, _money_scale(model, specs))
+    lo = d_low if low is None else low
+    hi = d_high if high is None else high
+    check_values(spec, [lo, hi])
+    if not lo < hi:
+        raise ParameterError(f"{spec.name}: the low end must be below the high end, "
+                             f"got {lo:g} and {hi:g}")
+    return np.linspace(lo, hi, points)
+
+
+def sweep_points(doc: Any, parameter: str, *, points: int = 41, low: float | None = None,
+                 high: float | None = None) -> list[float]:
+    """The evenly spaced points ``one_way`` uses by default (see there for the ranges)."""
+    model, specs = parameter_specs(doc)
+    spec = find_parameter(specs, parameter)
+    return [float(v) for v in _grid(model, specs, spec, points, low, high)]
 
 
 def _prepare(doc: Any, risk_tolerance):
@@ -271,17 +293,7 @@ def one_way(doc: Any, parameter: str, values=None, *, points: int = 41, low: flo
     r, model, specs = _prepare(doc, risk_tolerance)
     spec = find_parameter(specs, parameter)
     if values is None:
-        if isinstance(points, bool) or not isinstance(points, int) or not 2 <= points <= MAX_POINTS:
-            raise ParameterError(f"points: must be a whole number within [2, {MAX_POINTS}], "
-                                 f"got {points!r}")
-        d_low, d_high = _sweep_range(spec, _money_scale(model, specs))
-        lo = d_low if low is None else low
-        hi = d_high if high is None else high
-        check_values(spec, [lo, hi])
-        if not lo < hi:
-            raise ParameterError(f"{spec.name}: the low end must be below the high end, "
-                                 f"got {lo:g} and {hi:g}")
-        xs = np.linspace(lo, hi, points)
+        xs = _grid(model, specs, spec, points, low, high)
     else:
         xs = np.unique(check_values(spec, values))
         if not 1 <= len(xs) <= MAX_POINTS:
@@ -330,7 +342,9 @@ def tornado(doc: Any, *, swing: float = 0.2, probability_step: float = 0.1,
     risk_tolerance : float, optional
         Exponential-utility risk tolerance; values are then certainty equivalents.
     parameters : list of str, optional
-        Inputs to include (default every input, see ``list_parameters``).
+        Inputs to include. Default: every input of ``list_parameters`` except the cash flows
+        of tree branches that the document leaves out (0 by default): with a zero base they
+        would move by the model's whole money scale and crowd out the inputs actually given.
 
     Returns
     -------
@@ -350,7 +364,10 @@ def tornado(doc: Any, *, swing: float = 0.2, probability_step: float = 0.1,
             raise ParameterError(f"{name}: must be a positive number, got {val!r}")
     if probability_step > 1:
         raise ParameterError(f"probability_step: must be at most 1, got {probability_step}")
-    chosen = specs if parameters is None else [find_parameter(specs, n) for n in parameters]
+    if parameters is None:
+        chosen = [spec for spec in specs if spec.given]
+    else:
+        chosen = [find_parameter(specs, n) for n in parameters]
     ranges = dict(ranges or {})
     for name in ranges:
         find_parameter(specs, name)
@@ -428,8 +445,10 @@ def two_way(doc: Any, param_x: str, values_x, param_y: str, values_y, *,
     labels, index = _labels(model, bv.plan)
     notes = [RESCALING_NOTE] if {sx.kind, sy.kind} & PROBABILITY_KINDS else []
     return {
-        "x": {"parameter": sx.name, "label": sx.label, "values": [float(v) for v in xs]},
-        "y": {"parameter": sy.name, "label": sy.label, "values": [float(v) for v in ys]},
+        "x": {"parameter": sx.name, "label": sx.label, "kind": sx.kind,
+              "values": [float(v) for v in xs]},
+        "y": {"parameter": sy.name, "label": sy.label, "kind": sy.kind,
+              "values": [float(v) for v in ys]},
         "criterion": "certainty_equivalent" if r else "expected_value", "risk_tolerance": r,
         "labels": labels,
         "best": index.reshape(ny, nx).tolist(),

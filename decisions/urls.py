@@ -3,10 +3,8 @@
 from django.contrib import admin
 from django.urls import include, path
 
-from decisions.web import views as web_views
-
 urlpatterns = [
-    path("", web_views.home, name="home"),
     path("admin/", admin.site.urls),
     path("api/", include("decisions.api.urls")),
+    path("", include("decisions.web.urls")),
 ]

@@ -176,20 +176,31 @@ def test_batched_sweep_equals_evaluating_each_point(doc, data, r):
     assert_matches_reference(doc, p["name"], xs, r)
 
 
+def competing_curves(doc, be, curves):
+    """The two curves that must cross at a break-even, or None when it lies deeper in the plan."""
+    a, b = be["first_choice_from"], be["first_choice_to"]
+    if a is not None and a != b:
+        return curves.get("options", curves["alternatives"]), a, b
+    if doc["kind"] == "payoff_table":
+        alt = [label.removeprefix("No study; ") for label in (be["from"], be["to"])]
+        if not any("; " in label for label in alt):
+            return curves["alternatives"], alt[0], alt[1]
+    return None
+
+
 @settings(max_examples=40, deadline=None)
-@given(doc=st.one_of(payoff_tables(with_study=False), trees()), data=st.data())
-def test_at_a_break_even_value_the_two_first_choices_are_worth_the_same(doc, data):
+@given(doc=st.one_of(payoff_tables(), trees()), data=st.data(),
+       r=st.sampled_from([None, None, 300.0]))
+def test_at_a_break_even_value_the_two_plans_are_worth_the_same(doc, data, r):
     p = data.draw(st.sampled_from(list_parameters(doc)))
-    res = one_way(doc, p["name"], points=9)
+    res = one_way(doc, p["name"], points=9, risk_tolerance=r)
     for be in res["break_even"]:
         x = be["value"]
-        at = one_way(doc, p["name"], [x])
-        curves = at["curves"]["alternatives"]
-        a, b = be["first_choice_from"], be["first_choice_to"]
-        if doc["kind"] == "payoff_table":
-            a, b = be["from"], be["to"]
-        if a != b and a is not None:
-            assert close(curves[a][0], curves[b][0], rel=1e-7), (x, curves)
+        at = one_way(doc, p["name"], [x], risk_tolerance=r)
+        pair = competing_curves(doc, be, at["curves"])
+        if pair is not None:
+            group, a, b = pair
+            assert close(group[a][0], group[b][0], rel=1e-7), (x, group)
         # the two plans are worth the same there, and the problem's value is continuous
         assert close(be["value_from"], be["value_to"], rel=1e-9)
         assert close(be["problem_value"], at["value"][0], rel=1e-7)
@@ -385,3 +396,58 @@ def test_likelihoods_of_different_states_may_form_a_two_way_grid():
 def test_an_invalid_model_is_refused_before_any_sweep():
     with pytest.raises(ModelValidationError):
         one_way({"kind": "payoff_table"}, "states[0].probability")
+
+
+# -- structure edge cases -----------------------------------------------------------------
+
+
+def test_a_large_batch_is_evaluated_in_chunks_with_the_same_results(monkeypatch):
+    import valuation.batch as batch
+
+    xs = list(np.linspace(0, 1, 23))
+    whole = two_way(TABLE, "states[0].probability", xs, "studies[1].cost", [0.0, 300_000.0])
+    monkeypatch.setattr(batch, "CHUNK_CELLS", 50)  # a few rows per chunk
+    chunked = two_way(TABLE, "states[0].probability", xs, "studies[1].cost", [0.0, 300_000.0])
+    assert chunked == whole
+    tree_whole = one_way(TREE, "nodes[1].branches[0].probability", points=9)
+    assert one_way(TREE, "nodes[1].branches[0].probability", points=9) == tree_whole
+
+
+def test_a_tree_whose_root_is_a_chance_node_reports_no_first_choice():
+    doc = {"kind": "tree", "root": "c", "nodes": [
+        {"id": "c", "kind": "chance", "branches": [{"label": "x", "probability": 0.5, "to": "d"},
+                                                    {"label": "y", "probability": 0.5, "to": "e2"}]},
+        {"id": "d", "kind": "decision", "name": "Pick", "branches": [{"label": "p", "to": "e1"},
+                                                                     {"label": "q", "to": "e3"}]},
+        {"id": "e1", "kind": "end", "payoff": 10}, {"id": "e2", "kind": "end", "payoff": 5},
+        {"id": "e3", "kind": "end", "payoff": 7}]}
+    res = assert_matches_reference(doc, "nodes[2].payoff", [0.0, 6.0, 8.0, 20.0])
+    assert res["first_choice"] == [None] * 4
+    assert res["plan"] == ["Pick: q", "Pick: q", "Pick: p", "Pick: p"]
+    assert [b["value"] for b in one_way(doc, "nodes[2].payoff")["break_even"]] == \
+        [pytest.approx(7, rel=1e-12)]  # p beats q once its payoff passes 7 (hand arithmetic)
+
+
+def test_a_tree_without_decisions_has_one_plan_and_no_break_even():
+    doc = {"kind": "tree", "root": "c", "nodes": [
+        {"id": "c", "kind": "chance", "branches": [{"label": "x", "probability": 0.5, "to": "e1"},
+                                                    {"label": "y", "probability": 0.5, "to": "e2"}]},
+        {"id": "e1", "kind": "end", "payoff": 10}, {"id": "e2", "kind": "end", "payoff": 5}]}
+    res = one_way(doc, "nodes[0].branches[0].probability", points=3)
+    assert res["value"] == [5.0, 7.5, 10.0]
+    assert res["plans"] == ["(no decision)"] and res["break_even"] == []
+
+
+def test_a_cost_minimising_tree_breaks_even_where_expected_costs_are_equal():
+    doc = {"kind": "tree", "objective": "min", "root": "d", "nodes": [
+        {"id": "d", "kind": "decision", "name": "D", "branches": [
+            {"label": "A", "to": "c", "cash_flow": 10}, {"label": "B", "to": "e3"}]},
+        {"id": "c", "kind": "chance", "branches": [{"label": "x", "probability": 0.5, "to": "e1"},
+                                                    {"label": "y", "probability": 0.5, "to": "e2"}]},
+        {"id": "e1", "kind": "end", "payoff": 10}, {"id": "e2", "kind": "end", "payoff": 50},
+        {"id": "e3", "kind": "end", "payoff": 45}]}
+    # 10 + 10 p + 50 (1 - p) = 45  =>  p = 0.375 (hand arithmetic)
+    res = assert_matches_reference(doc, "nodes[1].branches[0].probability", [0.0, 0.5, 1.0])
+    assert [b["value"] for b in one_way(doc, "nodes[1].branches[0].probability")["break_even"]] == \
+        [pytest.approx(0.375, rel=1e-12)]
+    assert res["value"] == [45.0, 40.0, 20.0]

@@ -105,6 +105,15 @@ def rescale_row(row_base, position: int, values) -> np.ndarray:
     else:
         out[:, others] = ((1.0 - v) / int(others.sum()))[:, None]
     out[:, position] = v
+    # Rounding can leave the row an ulp or two off 1; give the difference to the largest of
+    # the others, so a sequential sum of the row is 1 (documents that sum a hair above 1
+    # can push a derived signal probability above 1 downstream).
+    largest = int(np.flatnonzero(others)[np.argmax(out[0, others])]) if others.any() else position
+    if largest != position:
+        total = np.zeros(len(v))
+        for k in range(len(base)):  # sequential, as a reader of the document would sum
+            total = total + out[:, k]
+        out[:, largest] = np.maximum(out[:, largest] + (1.0 - total), 0.0)
     return out
 
 

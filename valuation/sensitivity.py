@@ -268,8 +268,11 @@ def one_way(doc: Any, parameter: str, values=None, *, points: int = 41, low: flo
         (table: the best alternative without information; tree: the root's choice),
         ``plan`` (compact label per point), ``plans`` (distinct labels), ``curves``
         (``alternatives``: value of each alternative / root branch; ``options``: value of each
-        study option, tables only), ``break_even`` (list of {value, from, to, first_choice_from,
-        first_choice_to, problem_value}) and ``note``. Amounts in the objective's units.
+        study option, tables only), ``break_even`` and ``note``. Each break-even holds
+        ``value`` (the parameter value where plan ``from`` hands over to plan ``to``),
+        ``first_choice_from`` / ``first_choice_to``, ``value_from`` / ``value_to`` (both
+        plans' values there, equal up to rounding) and ``problem_value``. Amounts in the
+        objective's units (expected costs for "min").
 
     Raises
     ------

@@ -17,13 +17,14 @@ property (see ``valuation.utility``).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
 from valuation.checks import Problems, describe
 from valuation.limits import (
+    MAX_NAME_LENGTH,
     MAX_TIME_YEARS,
     MAX_TREE_DEPTH,
     MAX_TREE_NODES,
@@ -43,7 +44,13 @@ _BRANCH_FIELDS = frozenset({"label", "to", "probability", "cash_flow", "time", "
 
 @dataclass
 class FlatTree:
-    """A validated tree. Node arrays are in document order; branch arrays by parent depth."""
+    """A validated tree. Node arrays are in document order; branch arrays by parent depth.
+
+    Within a depth, the branches of chance nodes come before those of decision nodes
+    (each group in document order of the parents), so that rollback reduces each
+    group as one contiguous slice. The branches of one node are always contiguous
+    and in document order: branch ``j`` of node ``i`` is ``first_branch[i] + j``.
+    """
 
     title: str
     currency: str
@@ -64,6 +71,9 @@ class FlatTree:
     level_slices: list[tuple[int, int]]  # branch slice [a, b) for parents at each depth
     first_branch: np.ndarray  # per node: index of its first branch in branch order (-1 if none)
     branch_count: np.ndarray
+    # Rollback plan (segment starts, groups, contiguous slices) worked out once per
+    # structure; see ``_plan_of``. Not part of the tree's value: excluded from ==.
+    cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def sign(self) -> float:
@@ -92,7 +102,23 @@ def _time(where: str, raw: Any, problems: Problems) -> float:
 
 
 def build_tree(doc: dict, problems: Problems) -> FlatTree | None:
-    """Validate a general-tree document and build its arrays in one pass over the nodes."""
+    """Validate a general-tree document and build its arrays in one pass over the nodes.
+
+    Two implementations of the same rules: ``_build_fast`` reads a valid document in
+    one tight pass (type checks inlined, no message formatting, no per-node object)
+    and gives up at the first thing it does not like; ``_build_checked`` then reads
+    the document again, collecting every problem with its location and message.
+    Both end in ``_finish``, so a document accepted by either yields the same tree
+    (``tests/test_valuation_flattree.py`` checks this on generated trees).
+    """
+    tree = _build_fast(doc)
+    if tree is not None:
+        return tree
+    return _build_checked(doc, problems)
+
+
+def _build_checked(doc: dict, problems: Problems) -> FlatTree | None:
+    """The validating reader: every problem is added to ``problems``; None when invalid."""
     problems.unknown_fields("", doc, _TREE_FIELDS)
     title, currency, objective, rate = check_common(doc, problems)
     sign = 1.0 if objective == "max" else -1.0
@@ -162,26 +188,222 @@ def build_tree(doc: dict, problems: Problems) -> FlatTree | None:
         return None
     parent = np.asarray(parent_l, dtype=np.int64)
     child = np.asarray(child_l, dtype=np.int64)
+    return _finish((title, currency, objective, rate), ids, names, kind, payoff, root, parent, child,
+                   np.asarray(prob_l, dtype=float), np.asarray(cash_l, dtype=float), label_l,
+                   first, count, problems)
+
+
+def _finish(common, ids, names, kind, payoff, root, parent, child, prob, cash, labels,
+            first, count, problems) -> FlatTree | None:
+    """Depths, branch order and level slices, shared by both readers."""
+    n = len(ids)
     depth = _depths(n, root, parent, child, first, count, ids, problems)
     if depth is None:
         return None
-    # Order branches by the depth of their parent; a stable sort keeps each parent's
-    # branches together and in document order, which reduceat and tie-breaking need.
-    order = np.argsort(depth[parent], kind="stable")
-    parent, child = parent[order], child[order]
-    prob = np.asarray(prob_l)[order]
-    cash = np.asarray(cash_l)[order]
-    labels = [label_l[j] for j in order]
-    pos = np.empty(len(order), dtype=np.int64)
-    pos[order] = np.arange(len(order))
-    first = np.where(first >= 0, pos[np.maximum(first, 0)], -1)
-    parent_depth = depth[parent]
+    # Order branches by the depth of their parent, chance parents before decision
+    # parents within a depth; a stable sort keeps each parent's branches together and
+    # in document order, which the segment reductions and tie-breaking need. A
+    # document written breadth-first is usually in this order already.
+    key = depth[parent] * 2 + (kind[parent] == DECISION)
+    if len(key) and not bool(np.all(key[1:] >= key[:-1])):
+        order = np.argsort(key, kind="stable")
+        parent, child, prob, cash, key = parent[order], child[order], prob[order], cash[order], key[order]
+        labels = [labels[j] for j in order.tolist()]
+        pos = np.empty(len(order), dtype=np.int64)
+        pos[order] = np.arange(len(order))
+        first = np.where(first >= 0, pos[np.maximum(first, 0)], -1)
     max_depth = int(depth.max())
-    bounds = np.searchsorted(parent_depth, np.arange(max_depth + 1), side="left")
-    ends = np.searchsorted(parent_depth, np.arange(max_depth + 1), side="right")
+    parent_depth = key >> 1
+    levels = np.arange(max_depth + 1)
+    bounds = np.searchsorted(parent_depth, levels, side="left")
+    ends = np.searchsorted(parent_depth, levels, side="right")
     slices = [(int(a), int(b)) for a, b in zip(bounds, ends, strict=True)]
-    return FlatTree(title, currency, objective, rate, ids, names, kind, payoff, depth, root,
+    tree = FlatTree(*common, ids, names, kind, payoff, depth, root,
                     parent, child, prob, cash, labels, slices, first, count)
+    _plan_of(tree)
+    return tree
+
+
+# -- the fast reader -----------------------------------------------------------------------
+
+
+def _name_ok(value) -> bool:
+    """Problems.name without the message: a non-blank str, not too long, no NUL."""
+    return (type(value) is str and 0 < len(value) <= MAX_NAME_LENGTH and not value.isspace()
+            and "\x00" not in value)
+
+
+def _time_ok(raw) -> float | None:
+    """``_time`` of a present value without the message; None when it breaks a rule."""
+    t = type(raw)
+    if (t is float or t is int) and 0 <= raw <= MAX_TIME_YEARS:
+        return float(raw)
+    return None
+
+
+def _build_fast(doc) -> FlatTree | None:
+    """Read a valid document in one pass; None at the first doubt (the checked reader decides)."""
+    if type(doc) is not dict:
+        return None
+    scratch = Problems()
+    scratch.unknown_fields("", doc, _TREE_FIELDS)
+    common = check_common(doc, scratch)
+    nodes = doc.get("nodes")
+    root_id = doc.get("root")
+    if (scratch or type(nodes) is not list or not nodes or len(nodes) > MAX_TREE_NODES
+            or type(root_id) is not str):
+        return None
+    objective, rate = common[2], common[3]
+    try:
+        scanned = _scan(nodes, rate)
+        if scanned is None:
+            return None
+        ids, names, kinds, pay, count, to_l, prob_l, label_l, cash_at, cash_amount = scanned
+        n, m = len(ids), len(to_l)
+        index = dict(zip(ids, range(n), strict=True))
+        if len(index) != n:  # a duplicate id
+            return None
+        root = index.get(root_id)
+        if root is None:
+            return None
+        child = np.fromiter(map(index.__getitem__, to_l), dtype=np.int64, count=m)
+        payoff = np.array(pay, dtype=float)
+        cash = np.zeros(m)
+        if cash_at:
+            cash[cash_at] = cash_amount
+        prob = np.array(prob_l, dtype=float)
+    except (KeyError, TypeError, ValueError, OverflowError):
+        return None
+    kind = np.frombuffer(bytes(kinds), dtype=np.int8).copy()
+    count_a = np.array(count, dtype=np.int64)
+    offsets = np.cumsum(count_a) - count_a
+    first = np.where(count_a > 0, offsets, -1)
+    parent = np.repeat(np.arange(n, dtype=np.int64), count_a)
+    if objective != "max":
+        # Same bits as the checked reader's ``sign * amount`` (zeros become -0.0 there too).
+        cash *= -1.0
+        payoff = np.where(kind == END, -payoff, 0.0)
+    return _finish(common, ids, names, kind, payoff, root, parent, child, prob, cash, label_l,
+                   first, count_a, Problems())
+
+
+def _scan(nodes: list, rate):
+    """The one pass over the nodes; None at the first rule broken (no message is built).
+
+    Every check here mirrors one in ``_build_checked``/``_read_branches``; the tight
+    loop (local names, ``type(x) is``) is what makes a million nodes cheap.
+    """
+    n = len(nodes)
+    ids: list[str] = []
+    names: list[str] = []
+    kinds = bytearray(n)
+    pay: list = [0.0] * n
+    count = [0] * n
+    to_l: list = []
+    prob_l: list = []
+    label_l: list[str] = []
+    cash_at: list[int] = []
+    cash_amount: list[float] = []
+    ids_append, names_append = ids.append, names.append
+    to_append, prob_append, label_append = to_l.append, prob_l.append, label_l.append
+    node_fields, branch_fields, kinds_of = _NODE_FIELDS, _BRANCH_FIELDS, _KINDS
+    name_ok, tol, max_len = _name_ok, PROBABILITY_SUM_TOLERANCE, MAX_NAME_LENGTH
+    for i, node in enumerate(nodes):
+        if type(node) is not dict or not node.keys() <= node_fields:
+            return None
+        nid = node.get("id")
+        if (type(nid) is not str or not 0 < len(nid) <= max_len or nid.isspace()
+                or "\x00" in nid):
+            return None
+        ids_append(nid)
+        nm = node.get("name", nid)
+        names_append(nm if isinstance(nm, str) else nid)
+        k = kinds_of[node.get("kind")]
+        if k == END:
+            v = node.get("payoff")
+            tv = type(v)
+            if tv is float:
+                if v - v != 0.0:  # inf or nan
+                    return None
+            elif tv is not int:
+                return None
+            if len(node) > 3:
+                if node.get("branches"):
+                    return None
+                raw = node.get("time")
+                if raw is not None:
+                    t = _time_ok(raw)
+                    if t is None:
+                        return None
+                    if rate and t:
+                        v = float(v) / (1.0 + rate) ** t
+            pay[i] = v
+            continue
+        kinds[i] = k
+        branches = node.get("branches")
+        if type(branches) is not list or not branches:
+            return None
+        nb = len(branches)
+        count[i] = nb
+        if k == CHANCE:
+            total = 0.0
+            for br in branches:
+                if type(br) is not dict or not br.keys() <= branch_fields:
+                    return None
+                label = br.get("label")
+                if not name_ok(label):
+                    return None
+                label_append(label)
+                to_append(br.get("to"))
+                p = br.get("probability")
+                tp = type(p)
+                if not ((tp is float or tp is int) and 0.0 <= p <= 1.0):
+                    return None
+                total += p
+                prob_append(p)
+                if len(br) > 3 and not _extras(br, rate, len(to_l) - 1, cash_at, cash_amount):
+                    return None
+            if abs(total - 1.0) > tol:
+                return None
+        else:
+            for br in branches:
+                if type(br) is not dict or not br.keys() <= branch_fields:
+                    return None
+                label = br.get("label")
+                if not name_ok(label):
+                    return None
+                label_append(label)
+                to_append(br.get("to"))
+                if len(br) > 2:
+                    if br.get("probability") is not None:
+                        return None
+                    if not _extras(br, rate, len(to_l) - 1, cash_at, cash_amount):
+                        return None
+            prob_l.extend([0.0] * nb)
+        if nb > 1 and len(set(label_l[-nb:])) != nb:  # a duplicate label
+            return None
+    return ids, names, kinds, pay, count, to_l, prob_l, label_l, cash_at, cash_amount
+
+
+def _extras(br: dict, rate, at: int, cash_at: list, cash_amount: list) -> bool:
+    """Cash flow and time of a branch that has them; False when one breaks a rule."""
+    cf = br.get("cash_flow", 0)
+    tc = type(cf)
+    if tc is float:
+        if cf - cf != 0.0:
+            return False
+    elif tc is not int:
+        return False
+    raw = br.get("time")
+    t = 0.0
+    if raw is not None:
+        t = _time_ok(raw)
+        if t is None:
+            return False
+    if cf or (tc is float and cf == 0.0):
+        cash_at.append(at)
+        cash_amount.append(_discount(float(cf), t, rate))
+    return True
 
 
 def _read_branches(i, node, k, index, problems, sign, rate, out, first, count) -> None:
@@ -293,70 +515,204 @@ def _segment_starts(tree: FlatTree, a: int, b: int) -> np.ndarray:
     return np.concatenate(([0], change))
 
 
+# -- rollback plan: the structure's segments, worked out once ---------------------------------
+
+
+@dataclass
+class _Bucket:
+    """The segments of one group that have ``width`` branches each."""
+
+    width: int
+    segments: np.ndarray | None  # segment numbers within the group (None: all of them)
+    cells: np.ndarray | None  # segments x width positions in the group (None: a plain reshape)
+
+
+@dataclass
+class _Group:
+    """The branches of one kind of parent (chance or decision) at one depth."""
+
+    sel: slice | np.ndarray  # positions within the level
+    base: np.ndarray | int  # absolute branch index of each position (an int when contiguous)
+    parents: slice | np.ndarray  # node of each segment
+    starts: np.ndarray  # start of each segment within the group
+    seg: np.ndarray | None  # segment number of each branch (only when widths differ)
+    buckets: list[_Bucket]
+    size: int
+
+
+@dataclass
+class _Level:
+    a: int
+    b: int
+    child: slice | np.ndarray  # children of the level's branches (a slice when consecutive)
+    chance: _Group | None
+    decision: _Group | None
+
+
+@dataclass
+class _Plan:
+    parent: np.ndarray  # the arrays the plan was made from, to notice a replaced structure
+    child: np.ndarray
+    kind: np.ndarray
+    is_end: np.ndarray
+    levels: list[_Level]
+
+
+def _as_slice(idx: np.ndarray) -> slice | np.ndarray:
+    """A run of consecutive integers as a slice (views instead of gathers), else the array."""
+    if len(idx) and int(idx[-1]) - int(idx[0]) == len(idx) - 1 and bool(np.all(np.diff(idx) == 1)):
+        return slice(int(idx[0]), int(idx[-1]) + 1)
+    return idx
+
+
+def _group(tree: FlatTree, a: int, sel: np.ndarray) -> _Group:
+    parents = tree.parent[a + sel]
+    starts = np.concatenate(([0], np.flatnonzero(parents[1:] != parents[:-1]) + 1))
+    widths = np.diff(np.append(starts, len(sel)))
+    sel_s = _as_slice(sel)
+    base = a + sel_s.start if isinstance(sel_s, slice) else a + sel
+    seg = None
+    if bool(np.all(widths == widths[0])):
+        buckets = [_Bucket(int(widths[0]), None, None)]
+    else:
+        seg = np.repeat(np.arange(len(starts)), widths)
+        buckets = []
+        for w in np.unique(widths):
+            segments = np.flatnonzero(widths == w)
+            cells = starts[segments][:, None] + np.arange(w)[None, :]
+            buckets.append(_Bucket(int(w), segments, cells))
+    return _Group(sel_s, base, _as_slice(parents[starts]), starts, seg, buckets, len(sel))
+
+
+def _plan_of(tree: FlatTree) -> _Plan:
+    """The rollback plan of ``tree``, made on first use and kept while the structure stays."""
+    plan = tree.cache.get("plan")
+    if (plan is not None and plan.parent is tree.parent and plan.child is tree.child
+            and plan.kind is tree.kind):
+        return plan
+    levels = []
+    for a, b in tree.level_slices:
+        if a == b:
+            continue
+        is_dec = tree.kind[tree.parent[a:b]] == DECISION
+        pos = np.arange(b - a)
+        chance = _group(tree, a, pos[~is_dec]) if not bool(is_dec.all()) else None
+        decision = _group(tree, a, pos[is_dec]) if bool(is_dec.any()) else None
+        levels.append(_Level(a, b, _as_slice(tree.child[a:b]), chance, decision))
+    plan = _Plan(tree.parent, tree.child, tree.kind, tree.kind == END, levels)
+    tree.cache["plan"] = plan
+    return plan
+
+
+def _segment_sum(x: np.ndarray, g: _Group) -> np.ndarray:
+    """Sum of each segment, added left to right in branch order (as a plain loop would)."""
+    out = np.empty(len(g.starts))
+    for bk in g.buckets:
+        cols = x.reshape(-1, bk.width) if bk.cells is None else x[bk.cells]
+        if bk.width > 8:
+            # cumsum is a strictly sequential accumulation, unlike sum's pairwise blocks.
+            total = np.cumsum(cols, axis=1)[:, -1]
+        else:
+            total = cols[:, 0].copy()
+            for j in range(1, bk.width):
+                total += cols[:, j]
+        if bk.segments is None:
+            return total
+        out[bk.segments] = total
+    return out
+
+
+def _segment_best(x: np.ndarray, g: _Group) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per segment: position of the best branch (first within the tie tolerance), tie, top."""
+    m = len(g.starts)
+    choice = np.empty(m, dtype=np.int64)
+    ties = np.empty(m, dtype=bool)
+    top = np.empty(m)
+    for bk in g.buckets:
+        cols = x.reshape(-1, bk.width) if bk.cells is None else x[bk.cells]
+        t = cols.max(axis=1)
+        tol = TIE_TOLERANCE * np.maximum(1.0, np.abs(t))
+        near = cols >= (t - tol)[:, None]
+        local = near.argmax(axis=1)
+        tie = np.count_nonzero(near, axis=1) > 1
+        if bk.segments is None:
+            return g.starts + local, tie, t
+        choice[bk.segments] = g.starts[bk.segments] + local
+        ties[bk.segments] = tie
+        top[bk.segments] = t
+    return choice, ties, top
+
+
+def _cash_is_identity(cash: np.ndarray, payoff: np.ndarray) -> bool:
+    """True when adding ``cash`` would change no value, so rollback may skip the addition.
+
+    Adding -0.0 changes nothing; adding +0.0 changes nothing unless a value is -0.0,
+    which can only come from a payoff of -0.0.
+    """
+    if cash.any():
+        return False
+    return bool(np.signbit(cash).all()) or not bool(np.signbit(payoff).any())
+
+
 def rollback(tree: FlatTree, *, risk_tolerance: float | None = None,
              prob: np.ndarray | None = None) -> Rollback:
     """Fold the tree back from the leaves; chance nodes average (or take the CE), decisions pick.
 
     ``prob`` overrides the branch probabilities (same order as ``tree.prob``), so
     sensitivity sweeps and value-of-information runs reuse the structure.
+
+    Each depth is two contiguous groups of branches (those of chance nodes, those of
+    decision nodes); a group whose nodes all have ``k`` branches is reduced as a
+    ``(nodes, k)`` matrix, column by column, so a chance node's mean is added up left
+    to right exactly as ``tests/reference_rollback.py`` does it in plain Python.
     """
+    plan = _plan_of(tree)
     p_all = tree.prob if prob is None else prob
     n = tree.size
-    value = np.where(tree.kind == END, tree.payoff, 0.0)
+    value = np.where(plan.is_end, tree.payoff, 0.0)
     expected = value.copy() if risk_tolerance else None
     best = np.full(n, -1, dtype=np.int64)
     tie = np.zeros(n, dtype=bool)
-    for a, b in reversed(tree.level_slices):
-        if a == b:
-            continue
-        starts = _segment_starts(tree, a, b)
-        parents = tree.parent[a:b][starts]
-        bv = tree.cash[a:b] + value[tree.child[a:b]]
+    skip_cash = _cash_is_identity(tree.cash, tree.payoff)
+    for lv in reversed(plan.levels):
+        a, b = lv.a, lv.b
+        bv = value[lv.child]
+        if not skip_cash:
+            bv = tree.cash[a:b] + bv
         p = p_all[a:b]
-        is_chance = tree.kind[parents] == CHANCE
-        node_value = np.empty(len(parents))
-        if risk_tolerance:
-            node_value[is_chance] = _chance_ce(bv, p, starts, risk_tolerance)[is_chance]
-        else:
-            node_value[is_chance] = np.add.reduceat(p * bv, starts)[is_chance]
-        choice, ties, top = _decide(bv, starts, a)
-        is_dec = ~is_chance
-        node_value[is_dec] = top[is_dec]
-        value[parents] = node_value
-        best[parents[is_dec]] = choice[is_dec]
-        tie[parents[is_dec]] = ties[is_dec]
         if expected is not None:
-            ev_b = tree.cash[a:b] + expected[tree.child[a:b]]
-            ev_node = np.add.reduceat(p * ev_b, starts)
-            ev_node[is_dec] = ev_b[choice[is_dec] - a]
-            expected[parents] = ev_node
+            ev_b = expected[lv.child]
+            if not skip_cash:
+                ev_b = tree.cash[a:b] + ev_b
+        g = lv.chance
+        if g is not None:
+            pg = p[g.sel]
+            if risk_tolerance:
+                value[g.parents] = _chance_ce(bv[g.sel], pg, g, risk_tolerance)
+            else:
+                value[g.parents] = _segment_sum(pg * bv[g.sel], g)
+            if expected is not None:
+                expected[g.parents] = _segment_sum(pg * ev_b[g.sel], g)
+        g = lv.decision
+        if g is not None:
+            local, ties, top = _segment_best(bv[g.sel], g)
+            value[g.parents] = top
+            best[g.parents] = g.base + local if isinstance(g.base, int) else g.base[local]
+            tie[g.parents] = ties
+            if expected is not None:
+                expected[g.parents] = ev_b[g.sel][local]
     return Rollback(value, best, tie, expected)
 
 
-def _chance_ce(bv, p, starts, r) -> np.ndarray:
+def _chance_ce(bv, p, g: _Group, r) -> np.ndarray:
     """Certainty equivalent per segment, shifted by the segment minimum to avoid overflow."""
     masked = np.where(p > 0, bv, np.inf)
-    m = np.minimum.reduceat(masked, starts)
-    seg = np.repeat(np.arange(len(starts)), np.diff(np.append(starts, len(bv))))
+    m = np.minimum.reduceat(masked, g.starts)
+    seg = g.seg if g.seg is not None else np.repeat(np.arange(len(g.starts)), g.buckets[0].width)
     # Branches of probability 0 are left out of the sum (their exponent may overflow).
     exponent = np.where(p > 0, -(bv - m[seg]) / r, -np.inf)
-    total = np.add.reduceat(p * np.exp(exponent), starts)
-    # Decision nodes share the level's slice; their segments (all p = 0) give -inf
-    # here and are discarded by the caller, so the warning would be noise.
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return m - r * np.log(total)
-
-
-def _decide(bv, starts, offset) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Best branch per segment: the first (document order) within the tie tolerance of the max."""
-    top = np.maximum.reduceat(bv, starts)
-    seg = np.repeat(np.arange(len(starts)), np.diff(np.append(starts, len(bv))))
-    tol = TIE_TOLERANCE * np.maximum(1.0, np.abs(top))
-    near = bv >= top[seg] - tol[seg]
-    idx = np.where(near, np.arange(len(bv)), len(bv))
-    choice = np.minimum.reduceat(idx, starts) + offset
-    ties = np.add.reduceat(near.astype(np.int64), starts) > 1
-    return choice, ties, top
+    total = _segment_sum(p * np.exp(exponent), g)
+    return m - r * np.log(total)
 
 
 def reach_probabilities(tree: FlatTree, best: np.ndarray,

@@ -15,6 +15,7 @@ from django.contrib.auth import get_user_model
 from django.core.management.base import BaseCommand, CommandError
 from django.db import transaction
 
+from decisions.demo_sources import load_demo_sources
 from decisions.services import decisions as svc
 from decisions.services import signoff, teams
 from decisions.services.locking import IF_MATCH_ANY
@@ -137,6 +138,7 @@ class Command(BaseCommand):
         # the outsider's own decision, in the other team
         svc.create_decision(actor=users["omar"], team=other,
                             title="Reservoir intake screen (invented)", policy=policy)
+        load_demo_sources(team=team, users=users, password=DEMO_PASSWORD)  # sources, outcomes
 
     def _print_logins(self):
         self.stdout.write(f"Demo logins (invented people; password for all: {DEMO_PASSWORD}):")

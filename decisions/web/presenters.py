@@ -154,7 +154,8 @@ def tree_rows(document: dict, results: dict, *, limit: int = 400) -> tuple[list[
             "indent": f"{depth * 1.4:.1f}rem",
             "branch": label,
             "kind": node.get("kind", "end"),
-            "name": node.get("name") or node_id,
+            # end nodes of an expanded table have only generated ids: show none
+            "name": node.get("name") or ("" if node.get("kind") == "end" else node_id),
             "id": node_id,
             "probability": prob(branch.get("probability")) if branch and "probability" in branch
             else "",

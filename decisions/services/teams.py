@@ -69,6 +69,8 @@ def change_role(*, actor, membership: Membership, role: str) -> Membership:
 def remove_member(*, actor, membership: Membership) -> None:
     _require_staff(actor, "remove a member")
     with transaction.atomic():
+        # Re-read under a lock: the caller's copy may be stale (a role changed since).
+        membership = Membership.objects.select_for_update().get(pk=membership.pk)
         team_id, username, role = (membership.team_id, membership.user.get_username(),
                                    membership.role)
         membership.delete()

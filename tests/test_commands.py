@@ -85,3 +85,44 @@ def test_load_demo_fills_every_status_and_keeps_a_sound_chain(db, capsys, settin
     call_command("verify_audit")
     call_command("load_demo", if_empty=True)
     assert "left as it is" in capsys.readouterr().out
+
+
+def test_verify_audit_catches_version_content_changed_behind_the_signature(submitted, people,
+                                                                         capsys, client_for):
+    from decisions.services import signoff
+    from decisions.services.locking import IF_MATCH_ANY
+    from tests.personas import PASSWORD
+
+    signoff.sign(submitted.pk, 1, actor=people.fred, password=PASSWORD, role="financial review",
+                 meaning="approve", if_match=IF_MATCH_ANY)
+    call_command("verify_audit")
+    with triggers_off(), connection.cursor() as cur:
+        cur.execute("UPDATE decisions_modelversion SET canonical_json = "
+                    "replace(canonical_json, '9000000', '9900000')")
+    with pytest.raises(SystemExit):
+        call_command("verify_audit")
+    err = capsys.readouterr().err
+    assert f"decision {submitted.pk} version 1: content does not match its content_sha256" in err
+    response = client_for(people.vic).get(f"/api/decisions/{submitted.pk}/versions/1/signoffs/")
+    assert response.data[0]["binds_current_content"] is False
+    assert client_for(people.vic).get("/api/audit/verify/").data["records_ok"] is False
+
+
+def test_verify_audit_catches_a_signoff_moved_to_another_version(submitted, people, capsys):
+    from decisions.models import ModelVersion, SignOff
+    from decisions.services import decisions as svc
+    from decisions.services import signoff
+    from decisions.services.locking import IF_MATCH_ANY
+    from tests.personas import PASSWORD, small_table
+
+    s = signoff.sign(submitted.pk, 1, actor=people.fred, password=PASSWORD,
+                     role="financial review", meaning="approve", if_match=IF_MATCH_ANY)
+    svc.save_version(submitted.pk, actor=people.ana, document=small_table(title="v2"),
+                     if_match=IF_MATCH_ANY)
+    v2 = ModelVersion.objects.get(decision=submitted, number=2)
+    with triggers_off(), connection.cursor() as cur:
+        cur.execute("UPDATE decisions_signoff SET version_id = %s WHERE id = %s", [v2.pk, s.pk])
+    assert SignOff.objects.get(pk=s.pk).version_id == v2.pk
+    with pytest.raises(SystemExit):
+        call_command("verify_audit")
+    assert f"sign-off {s.pk} (Fred Finance): not bound" in capsys.readouterr().err

@@ -8,6 +8,7 @@ messages read the same as everywhere else.
 
 from __future__ import annotations
 
+import hashlib
 import json
 
 from rest_framework import serializers
@@ -54,8 +55,10 @@ class SignOffSerializer(serializers.ModelSerializer):
         read_only_fields = fields
 
     def get_binds_current_content(self, obj) -> bool:
-        """The signature is bound to the bytes it signed: the hashes still agree."""
-        return obj.bound_sha256 == obj.version.content_sha256
+        """The signature is bound to the bytes it signed: the stored content still hashes
+        to the value the signature carries."""
+        stored = hashlib.sha256(obj.version.canonical_json.encode("utf-8")).hexdigest()
+        return obj.bound_sha256 == obj.version.content_sha256 == stored
 
 
 class StrategySerializer(serializers.ModelSerializer):

@@ -26,6 +26,7 @@ __all__ = [
     "read_checkpoint",
     "verify_chain",
     "verify_events",
+    "verify_records",
 ]
 
 
@@ -199,6 +200,45 @@ def verify_chain(*, checkpoint: dict | None = None, chunk_size: int = 2000) -> C
                 f"{expected[:12]}… (the chain was rewritten)"
             )
     return report
+
+
+def verify_records(*, chunk_size: int = 500) -> list[str]:
+    """Check the signed records against the chain: every problem found, in order.
+
+    - each version's canonical text still hashes to its ``content_sha256``, and
+      that hash is the one its ``version.create`` event recorded;
+    - each sign-off is bound to the hash of the version it sits on, as its
+      audit event recorded.
+    """
+    from decisions.models import ModelVersion, SignOff
+
+    recorded: dict[tuple[str, int], str] = {}
+    signed: dict[int, str] = {}
+    events = AuditEvent.objects.filter(action__in=["version.create", "signoff.approve",
+                                                   "signoff.reject"]).order_by("seq")
+    for event in events.iterator(chunk_size=chunk_size):
+        payload = json.loads(event.payload_canonical)
+        if event.action == "version.create":
+            recorded[(event.object_id, payload["number"])] = payload["content_sha256"]
+        else:
+            signed[payload["signoff_id"]] = payload["bound_sha256"]
+    problems = []
+    versions = ModelVersion.objects.order_by("decision_id", "number")
+    for v in versions.iterator(chunk_size=chunk_size):
+        where = f"decision {v.decision_id} version {v.number}"
+        actual = hashlib.sha256(v.canonical_json.encode("utf-8")).hexdigest()
+        if actual != v.content_sha256:
+            problems.append(f"{where}: content does not match its content_sha256")
+        elif recorded.get((str(v.decision_id), v.number)) != v.content_sha256:
+            problems.append(f"{where}: content_sha256 differs from the one the audit trail "
+                            f"recorded")
+    rows = SignOff.objects.select_related("version").order_by("id")
+    for s in rows.iterator(chunk_size=chunk_size):
+        if s.bound_sha256 != s.version.content_sha256 or signed.get(s.pk) != s.bound_sha256:
+            problems.append(f"sign-off {s.pk} ({s.signer_printed_name}): not bound to the "
+                            f"content of decision {s.version.decision_id} version "
+                            f"{s.version.number}")
+    return problems
 
 
 def read_checkpoint(text: str) -> dict:

@@ -4,12 +4,14 @@ from pathlib import Path
 
 from django.core.management.base import BaseCommand, CommandError
 
-from decisions.services.audit import read_checkpoint, verify_chain
+from decisions.services.audit import read_checkpoint, verify_chain, verify_records
 
 
 class Command(BaseCommand):
     help = ("Check every audit event's link and hash, the chain head and, with --checkpoint, "
-            "a head recorded earlier by audit_checkpoint. Exits non-zero on any break.")
+            "a head recorded earlier by audit_checkpoint; then check that every version's "
+            "content and every sign-off still match the hashes the chain recorded. "
+            "Exits non-zero on any break.")
 
     def add_arguments(self, parser):
         parser.add_argument("--checkpoint", metavar="FILE",
@@ -29,6 +31,11 @@ class Command(BaseCommand):
         if not report.ok:
             self.stderr.write(f"Audit chain BROKEN after {report.count} good event(s): "
                               f"{report.first_break}")
+            raise SystemExit(1)
+        records = verify_records()
+        if records:
+            for problem in records:
+                self.stderr.write(f"Signed records BROKEN: {problem}")
             raise SystemExit(1)
         checked = f"; checkpoint #{mark['seq']} matches" if mark else ""
         self.stdout.write(self.style.SUCCESS(

@@ -349,7 +349,7 @@ def review(decision: Decision) -> dict[str, Any]:
     """Post-hoc review of a decision with a recorded outcome (see the module notes)."""
     outcome = current_outcome(decision)
     if outcome is None:
-        raise NotFoundError("outcome: none recorded for this decision yet", location="outcome")
+        raise NotFoundError("none recorded for this decision yet", location="outcome")
     version = outcome.version
     strategy = version.strategies.order_by("-chosen_at", "-id").first()
     doc, tree = _tree_of(version)

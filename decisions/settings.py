@@ -12,6 +12,8 @@ Variables (all optional unless stated):
 - ``CSRF_TRUSTED_ORIGINS``: comma-separated origins behind a proxy.
 - ``SECURE_SSL``: ``true`` behind HTTPS (secure cookies, HSTS, redirect).
 - ``MAX_REQUEST_BYTES``: largest request body accepted (default 2,621,440).
+- ``API_TOKEN_RATE`` / ``API_EVALUATE_RATE``: DRF throttle rates for ``/api/token/``
+  and ``/api/evaluate/`` (default ``20/min`` and ``120/min``; fairness, not security).
 """
 
 from __future__ import annotations

@@ -7,6 +7,7 @@ from rest_framework.routers import SimpleRouter
 from rest_framework.throttling import ScopedRateThrottle
 
 from decisions.api import sources_views, views, views_extra
+from decisions.api.memo_views import VersionMemoView
 
 
 class TokenView(ObtainAuthToken):
@@ -37,6 +38,8 @@ urlpatterns = [
          versions.as_view({"get": "diff"}), name="version-diff"),
     path("decisions/<int:decision_pk>/versions/<int:number>/signoffs/",
          signoffs.as_view({"get": "list", "post": "create"}), name="signoff-list"),
+    path("decisions/<int:decision_pk>/versions/<int:number>/memo.pdf",
+         VersionMemoView.as_view(), name="version-memo"),
     *sources_views.urlpatterns,
     *router.urls,
 ]

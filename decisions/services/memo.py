@@ -1,0 +1,148 @@
+"""The decision memo of one model version: gather the records, then build the PDF.
+
+Reading only: no state changes, so no transaction or audit event. The memo is
+built from committed data after any change has been committed (STYLE.md, habit
+1). The PDF itself is built by the pure ``decisions.memo.build.build_memo`` from
+the plain dict assembled here, so the same memo can be rebuilt later from the
+same records and compared byte for byte (apart from the generation time).
+
+Outcomes and study-source calibrations are passed in as plain data
+(``outcomes=``, ``sources=``; shapes in ``decisions.memo.build``) by whoever
+records them; the memo prints those sections only when they are given.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+from datetime import UTC, datetime
+
+from django.utils import timezone
+
+from decisions.memo.build import build_memo
+from decisions.models import AuditEvent, Decision, ModelVersion
+from decisions.services.access import visible_decisions
+from decisions.services.decisions import get_version
+from decisions.services.errors import NotFoundError
+from decisions.services.signoff import policy_progress
+
+__all__ = ["memo_data", "memo_filename", "memo_for_version", "memo_for_operator",
+           "SENSITIVITY_NODE_LIMIT", "TORNADO_ROWS", "SWEEPS"]
+
+log = logging.getLogger(__name__)
+
+#: Sensitivity is computed for models up to this many tree nodes (a table: its cells);
+#: beyond it the memo says it was not computed rather than holding the request up.
+SENSITIVITY_NODE_LIMIT = 5_000
+#: Inputs shown in the tornado chart and swept one way for break-even values.
+TORNADO_ROWS = 10
+SWEEPS = 3
+
+
+def _utc(value: datetime | None) -> str:
+    if value is None:
+        return ""
+    return value.astimezone(UTC).strftime("%Y-%m-%d %H:%M:%S UTC")
+
+
+def _model_size(document: dict) -> int:
+    if document.get("kind") == "payoff_table":
+        return len(document.get("states", [])) * max(len(document.get("alternatives", [])), 1) \
+            * (1 + len(document.get("studies", [])))
+    return len(document.get("nodes", []))
+
+
+def sensitivity_data(document: dict, results: dict) -> dict:
+    """Tornado rows and one-way sweeps of the most influential inputs, or a note why not.
+
+    ``valuation.sensitivity`` is the core's; while it is absent or fails on a model
+    the memo prints "Sensitivity not computed" with the reason instead.
+    """
+    if _model_size(document) > SENSITIVITY_NODE_LIMIT:
+        return {"note": f"the model is larger than {SENSITIVITY_NODE_LIMIT:,} nodes or cells"}
+    try:
+        from valuation import sensitivity
+    except ImportError:
+        return {"note": "the sensitivity module is not installed"}
+    try:
+        rows = sensitivity.tornado(document)[:TORNADO_ROWS]
+        sweeps = [sensitivity.one_way(document, row["name"]) for row in rows[:SWEEPS]
+                  if row["swing"] > 0]
+    except Exception as exc:  # the section is optional; the memo must still be built
+        log.warning("sensitivity for the memo failed: %s", exc)
+        return {"note": f"the sensitivity analysis failed ({type(exc).__name__})"}
+    return {"tornado": rows, "one_way": sweeps, "base_value": results.get("expected_value"),
+            "note": ("Amounts move by 20% of their base and probabilities by 0.1 either way; "
+                     "other probabilities of the same node are rescaled to keep the sum 1.")}
+
+
+def memo_data(version: ModelVersion, *, generated_at: datetime, sources: list | None = None,
+              outcomes: dict | None = None, sensitivity: dict | None = None) -> dict:
+    """The plain dict ``build_memo`` takes, read from the records of ``version``."""
+    decision: Decision = version.decision
+    document = json.loads(version.canonical_json)
+    results = version.results
+    strategy = version.strategies.select_related("chosen_by").order_by("-chosen_at", "-id").first()
+    head = AuditEvent.objects.order_by("-seq").values("seq", "hash").first()
+    signoffs = version.signoffs.order_by("signed_at", "id")
+    return {
+        "decision": {"id": decision.pk, "title": decision.title, "team": decision.team.name,
+                     "status": decision.status},
+        "version": {"number": version.number, "content_sha256": version.content_sha256,
+                    "results_sha256": version.results_sha256,
+                    "created_at": _utc(version.created_at),
+                    "author": version.author.get_username(), "change_note": version.change_note},
+        "generated_at": _utc(generated_at),
+        "audit_head": head,
+        "document": document,
+        "results": results,
+        "strategy": None if strategy is None else {
+            "recommended": strategy.recommended, "plan": strategy.plan,
+            "justification": strategy.justification, "value_given_up": strategy.value_given_up,
+            "chosen_by": strategy.chosen_by.get_username(), "chosen_at": _utc(strategy.chosen_at)},
+        "signoffs": [{"printed_name": s.signer_printed_name, "role": s.role,
+                      "meaning": s.meaning, "signed_at": _utc(s.signed_at),
+                      "bound_sha256": s.bound_sha256, "reason": s.reason} for s in signoffs],
+        "policy": policy_progress(decision, version),
+        "sensitivity": sensitivity if sensitivity is not None
+        else sensitivity_data(document, results),
+        "sources": sources,
+        "outcomes": outcomes,
+    }
+
+
+def memo_filename(decision_id: int, number: int) -> str:
+    """A download name with nothing a header or a file system could misread."""
+    return f"decision-{int(decision_id)}-version-{int(number)}-memo.pdf"
+
+
+def memo_for_version(user, decision_id, number, *, sources: list | None = None,
+                     outcomes: dict | None = None) -> bytes:
+    """The memo of version ``number`` of a decision ``user`` may see (any member of its team).
+
+    Raises :class:`NotFoundError` for a decision of another team or a missing version.
+    """
+    decision = visible_decisions(user).select_related("team").filter(pk=decision_id).first()
+    if decision is None:
+        raise NotFoundError("decision: not found")
+    version = get_version(decision, number)
+    return build_memo(memo_data(version, generated_at=timezone.now(), sources=sources,
+                                outcomes=outcomes))
+
+
+def memo_for_operator(decision_id, number: int | None = None) -> tuple[bytes, int]:
+    """The memo for the command line, which has the database's own trust: no team scope.
+
+    ``number`` defaults to the current version. Returns the PDF and the version number.
+    """
+    decision = Decision.objects.select_related("team").filter(pk=decision_id).first()
+    if decision is None:
+        raise NotFoundError(f"decision {decision_id}: not found", location="decision")
+    if number is None:
+        current = decision.current_version()
+        if current is None:
+            raise NotFoundError(f"decision {decision_id}: has no saved version yet",
+                                location="version")
+        number = current.number
+    version = get_version(decision, number)
+    return build_memo(memo_data(version, generated_at=timezone.now())), version.number

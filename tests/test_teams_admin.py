@@ -60,3 +60,31 @@ def test_date_filters_use_the_creation_day(people, client_for):
     before = client.get("/api/decisions/?created_before=2026-01-10").data["results"]
     assert [d["title"] for d in after] == ["March"]
     assert [d["title"] for d in before] == ["January"]
+
+
+def test_staff_manage_members_through_the_api(people, client_for):
+    staff = client_for(people.sam)
+    url = f"/api/teams/{people.other_team.pk}/members/"
+    r = staff.post(url, {"username": "vic", "role": "viewer"}, format="json")
+    assert r.status_code == 201 and r.data == {"username": "vic", "name": "Vic Viewer",
+                                               "role": "viewer"}
+    r = staff.patch(f"{url}vic/", {"role": "operations"}, format="json")
+    assert r.status_code == 200 and r.data["role"] == "operations"
+    assert staff.delete(f"{url}vic/").status_code == 204
+    assert [a for a, in AuditEvent.objects.order_by("-seq").values_list("action")[:3]] == \
+        ["membership.remove", "membership.change", "membership.add"]
+
+
+def test_members_are_not_managed_by_other_users(people, client_for):
+    body = {"username": "omar", "role": "viewer"}
+    r = client_for(people.ana).post(f"/api/teams/{people.team.pk}/members/", body,
+                                    format="json")
+    assert r.status_code == 403
+    r = client_for(people.omar).post(f"/api/teams/{people.team.pk}/members/", body,
+                                     format="json")
+    assert r.status_code == 404
+    r = client_for(people.sam).patch(f"/api/teams/{people.team.pk}/members/nobody/",
+                                     {"role": "viewer"}, format="json")
+    assert r.status_code == 404
+    assert r.data["errors"] == [{"location": "username",
+                                 "message": "nobody is not a member of this team"}]

@@ -21,6 +21,7 @@ from decisions.models import (
     Meaning,
     Membership,
     ModelVersion,
+    Role,
     SignOff,
     Status,
     Team,
@@ -199,6 +200,15 @@ class StrategyCreateSerializer(StrictSerializer):
     plan_text = serializers.CharField(required=False, allow_blank=True, max_length=4000)
     justification = serializers.CharField(required=False, allow_blank=True, max_length=4000)
     value_given_up = serializers.FloatField(required=False, min_value=0)
+
+
+class MemberSerializer(StrictSerializer):
+    username = serializers.CharField(max_length=150)
+    role = serializers.ChoiceField(choices=Role.values)
+
+
+class RoleSerializer(StrictSerializer):
+    role = serializers.ChoiceField(choices=Role.values)
 
 
 class CloseSerializer(StrictSerializer):

@@ -2,29 +2,73 @@
 
 from __future__ import annotations
 
+from django.contrib.auth import get_user_model
 from django.http import HttpResponse
 from django.urls import reverse
 from django.utils.html import escape
 from drf_spectacular.types import OpenApiTypes
 from drf_spectacular.utils import extend_schema
 from rest_framework import mixins, viewsets
+from rest_framework.decorators import action
 from rest_framework.response import Response
 from rest_framework.throttling import ScopedRateThrottle
 from rest_framework.views import APIView
 
 from decisions.api import serializers as s
+from decisions.models import Team
+from decisions.services import teams
 from decisions.services.access import visible_teams
 from decisions.services.audit import verify_chain, verify_records
+from decisions.services.errors import InvalidInput, NotFoundError
 from decisions.services.evaluation import evaluate_document
 
 
 class TeamViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.GenericViewSet):
-    """Your teams and their members' roles."""
+    """Your teams and their members' roles; staff add, re-role and remove members."""
 
     serializer_class = s.TeamSerializer
 
     def get_queryset(self):
-        return visible_teams(self.request.user).prefetch_related("memberships__user")
+        user = self.request.user
+        # Staff administer every team; everyone else sees only their own.
+        base = Team.objects.all() if user.is_staff else visible_teams(user)
+        return base.prefetch_related("memberships__user")
+
+    @extend_schema(request=s.MemberSerializer, responses={201: s.MembershipSerializer})
+    @action(detail=True, methods=["post"])
+    def members(self, request, pk=None):
+        """Add a member with a role (staff only)."""
+        team = self.get_object()
+        data = s.MemberSerializer(data=request.data)
+        data.is_valid(raise_exception=True)
+        user = get_user_model().objects.filter(username=data.validated_data["username"]).first()
+        if user is None:
+            raise InvalidInput("no such user", location="username")
+        membership = teams.add_member(actor=request.user, team=team, user=user,
+                                      role=data.validated_data["role"])
+        return Response(s.MembershipSerializer(membership).data, status=201)
+
+    def _membership(self, username):
+        team = self.get_object()
+        membership = team.memberships.filter(user__username=username).first()
+        if membership is None:
+            raise NotFoundError(f"{username} is not a member of this team", location="username")
+        return membership
+
+    @extend_schema(methods=["PATCH"], request=s.RoleSerializer, responses=s.MembershipSerializer)
+    @extend_schema(methods=["DELETE"], request=None, responses={204: None})
+    @action(detail=True, methods=["patch", "delete"], url_path=r"members/(?P<username>[^/]+)")
+    def member(self, request, pk=None, username=None):
+        """Change a member's role, or remove the member (staff only)."""
+        membership = self._membership(username)
+        if request.method == "DELETE":
+            teams.remove_member(actor=request.user, membership=membership)
+            return Response(status=204)
+        data = s.RoleSerializer(data=request.data)
+        data.is_valid(raise_exception=True)
+        membership = teams.change_role(actor=request.user, membership=membership,
+                                       role=data.validated_data["role"])
+        return Response(s.MembershipSerializer(membership).data)
 
 
 class AuditVerifyView(APIView):

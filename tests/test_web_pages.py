@@ -358,3 +358,17 @@ def test_live_validation_answers_messages_by_field(draft, people):
     assert body["ok"] is True and body["expected_value"] == "3,000,000 EUR"
     assert client_as(people.vic).post(reverse("web-validate", args=[draft.pk]),
                                       table_post(draft)).status_code == 403
+
+
+def test_decision_page_draws_the_tree_and_charts_as_inline_svg(draft, people):
+    page = html(client_as(people.vic).get(page_urls(draft)["decision"]))
+    assert page.count("<svg") >= 4  # legend, tree, risk profile, tornado, one-way
+    assert "<script" not in page.split("<footer")[0].split('id="sensitivity"')[1]
+
+
+def test_one_way_sensitivity_to_the_chosen_input_shows_the_break_even(draft, people):
+    # Deep well vs gas: 9e6 p - 1e6 (1 - p) = 2.5e6 at p = 0.35 (by hand).
+    url = page_urls(draft)["decision"] + "?input=states[0].probability"
+    page = html(client_as(people.vic).get(url))
+    assert '<option value="states[0].probability" selected>' in page
+    assert re.search(r"Break-even: 0\.35(00)?\b", page)

@@ -21,6 +21,7 @@ from decisions.services import signoff as signing
 from decisions.services.access import role_of
 from decisions.services.errors import DomainError
 from decisions.web import queries
+from decisions.web.figures import figures
 from decisions.web.forms import CloseForm, PolicyForm, SignForm, StrategyForm
 from decisions.web.presenters import diff_rows, money, results_view, tree_rows
 from valuation.diff import diff_documents
@@ -75,7 +76,9 @@ def detail(request, pk, *, sign_form=None, strategy_form=None, status=200):
     if strategy_form is None and is_analyst and decision.status == Status.APPROVED:
         strategy_form = StrategyForm(initial={"etag": decision.etag}, alternatives=alternatives)
     rejection = queries.rejection_of(current)
+    drawn = figures(document, results, chosen_input=request.GET.get("input")) if version else {}
     context = {
+        **drawn,
         "decision": decision, "role": role, "version": version, "current": current,
         "is_current": version is not None and current is not None and version.pk == current.pk,
         "versions": versions, "progress": progress, "sign_state": state, "sign_form": sign_form,

@@ -1,0 +1,68 @@
+"""Inline SVG of the tree and the charts, drawn by decisions.drawings (the memo's code).
+
+The same reportlab drawings go into the PDF memo, so the page and the memo never
+disagree. Sensitivity is computed from the version's stored document by the
+valuation core (pure, read-only); every other figure comes from stored results.
+"""
+
+from __future__ import annotations
+
+from django.utils.safestring import mark_safe
+
+from decisions.drawings.charts import risk_profile_chart, sensitivity_chart, tornado_chart
+from decisions.drawings.render import to_svg
+from decisions.drawings.tree import tree_drawings, tree_legend
+from valuation import expand
+from valuation.errors import ValuationError
+from valuation.sensitivity import one_way, tornado
+
+__all__ = ["figures"]
+
+MAX_TREE_PARTS = 6  # the page shows the first parts; the table below lists every node
+
+
+def _svg(drawing, title: str, prefix: str):
+    # to_svg parses and re-serialises our own renderer's output and refuses DOCTYPE and
+    # entity declarations, so the text is safe to inline.
+    return mark_safe(to_svg(drawing, id_prefix=prefix, title=title))  # noqa: S308
+
+
+def figures(document: dict, results: dict, *, chosen_input: str | None) -> dict:
+    """SVG of the tree parts, the risk profile, the tornado and one chosen one-way sweep."""
+    cur = results.get("currency") or ""
+    out: dict = {"tree_svgs": [], "risk_svg": None, "tornado_svg": None, "oneway_svg": None,
+                 "inputs": [], "chosen_input": None, "sensitivity_error": None,
+                 "tornado_rows": []}
+    parts = tree_drawings(expand(document), results.get("nodes") or {})
+    out["tree_total"] = len(parts)
+    out["tree_svgs"] = [_svg(d, f"Decision tree, part {i + 1} of {len(parts)}", f"tree{i}")
+                        for i, d in enumerate(parts[:MAX_TREE_PARTS])]
+    out["legend_svg"] = _svg(tree_legend(), "Key to the tree drawing", "legend")
+    if results.get("risk_profile"):
+        out["risk_svg"] = _svg(risk_profile_chart(results["risk_profile"], currency=cur,
+                                                  objective=results.get("objective", "max")),
+                               "Risk profile of the recommended plan", "risk")
+    risk_tolerance = results.get("risk_tolerance")
+    try:
+        rows = tornado(document, risk_tolerance=risk_tolerance)
+    except ValuationError as exc:
+        out["sensitivity_error"] = str(exc)
+        return out
+    out["tornado_rows"] = rows
+    out["inputs"] = [(r["name"], r["label"]) for r in rows]
+    if rows:
+        base = results.get("certainty_equivalent", results.get("expected_value"))
+        out["tornado_svg"] = _svg(tornado_chart(rows, base_value=base, currency=cur),
+                                  "Tornado chart", "tornado")
+        names = [r["name"] for r in rows]
+        chosen = chosen_input if chosen_input in names else names[0]
+        out["chosen_input"] = chosen
+        try:
+            sweep = one_way(document, chosen, risk_tolerance=risk_tolerance)
+        except ValuationError as exc:
+            out["sensitivity_error"] = str(exc)
+        else:
+            out["oneway_svg"] = _svg(sensitivity_chart(sweep, currency=cur),
+                                     f"One-way sensitivity to {sweep.get('label')}", "oneway")
+            out["break_even"] = sweep.get("break_even") or []
+    return out

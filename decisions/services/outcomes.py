@@ -56,7 +56,7 @@ from valuation.errors import ValuationError
 
 __all__ = ["current_outcome", "outcome_history", "record_outcome", "review", "walk_path"]
 
-_EDITORS = (Role.ANALYST,)
+_EDITORS = (Role.ANALYST.value,)
 _STUDY_SIGNAL = re.compile(r"^study([0-9]+)/signal$")
 _STATE_NODE = re.compile(r"(^|/)a[0-9]+$")
 MAX_NOTE = 5000

@@ -58,9 +58,10 @@ __all__ = [
 ACCURACY_MODES = ("claimed", "calibrated")
 #: A claim worth more than a million studies is a typing mistake, not a belief.
 MAX_PRIOR_STRENGTH = 1_000_000.0
-_WRITERS = (Role.ANALYST,)
+_WRITERS = (Role.ANALYST.value,)
 # Save a version: the same roles as the register's own save_version.
-_AUTHORS = (Role.ANALYST, Role.FINANCIAL_REVIEW, Role.OPERATIONS, Role.BUDGET_HOLDER)
+_AUTHORS = tuple(r.value for r in (Role.ANALYST, Role.FINANCIAL_REVIEW, Role.OPERATIONS,
+                                  Role.BUDGET_HOLDER))
 
 
 def _invalid(exc: ModelValidationError, prefix: str = "") -> InvalidInput:

@@ -126,3 +126,29 @@ def test_filters_select_by_status_and_owner(draft, people, client_for):
     assert client.get("/api/decisions/?status=closed").data["count"] == 0
     assert client.get("/api/decisions/?owner=ana").data["count"] == 1
     assert client.get(f"/api/decisions/?team={people.team.pk}").data["count"] == 1
+
+
+def test_a_huge_integer_is_refused_not_crashed(people, client_for):
+    body = b'{"document": {"discount_rate": ' + b"9" * 5000 + b"}}"
+    response = _post_raw(client_for(people.ana), "/api/evaluate/", body)
+    assert response.status_code == 400
+    assert response.json()["errors"][0]["message"].startswith("is not valid JSON: Exceeds the "
+                                                              "limit (4300 digits)")
+
+
+@pytest.mark.parametrize(("url", "body", "field"), [
+    ("/api/decisions/{pk}/versions/", {"document": {}, "author": "fred"}, "author"),
+    ("/api/decisions/{pk}/versions/", {"document": {}, "content_sha256": "0" * 64},
+     "content_sha256"),
+    ("/api/decisions/{pk}/versions/1/signoffs/",
+     {"role": "operations", "meaning": "approve", "password": "x", "signer": "olga"}, "signer"),
+    ("/api/decisions/{pk}/strategy/", {"recommended": True, "chosen_by": "bea"}, "chosen_by"),
+    ("/api/decisions/{pk}/", {"status": "approved"}, "status"),
+])
+def test_server_owned_fields_cannot_be_assigned(draft, people, client_for, url, body, field):
+    client = client_for(people.olga if "signoffs" in url else people.ana)
+    method = client.patch if url.endswith("{pk}/") else client.post
+    response = method(url.format(pk=draft.pk), body, format="json", HTTP_IF_MATCH=draft.etag)
+    assert response.status_code == 400
+    assert {"location": field, "message": "is not an accepted field here"} in \
+        response.data["errors"]

@@ -43,7 +43,14 @@ def _valid(serializer_class, request):
 
 class DecisionViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.GenericViewSet):
     """Decisions of your teams. Filters: ``status``, ``team``, ``owner`` (username),
-    ``created_after`` / ``created_before`` (dates, inclusive)."""
+    ``created_after`` / ``created_before`` (dates, inclusive).
+
+    Lifecycle: draft -> (submit) submitted -> (the last sign-off the policy asks for)
+    approved -> (strategy recorded, commit) committed -> (close) closed. A reject
+    sign-off, or a new version saved while submitted, sends it back to draft; after a
+    reject it can be submitted again only once a new version is saved. Any other move
+    is refused with 409.
+    """
 
     serializer_class = s.DecisionSerializer
     permission_classes = (IsAuthenticated, TeamRolePermission)

@@ -20,9 +20,11 @@ from decisions.memo.build import CAUTION, build_memo
 from decisions.models import AuditEvent
 from decisions.services import decisions as svc
 from decisions.services import signoff as signing
+from decisions.services import sources
 from decisions.services.errors import NotFoundError
 from decisions.services.locking import IF_MATCH_ANY
 from decisions.services.memo import memo_for_version, sensitivity_data
+from decisions.services.outcomes import record_outcome
 from tests.personas import PASSWORD, small_table
 from tests.test_drawings import big_tree, load
 from valuation.canonical import sha256_hex
@@ -355,3 +357,46 @@ def test_command_names_a_missing_decision_or_version(draft, tmp_path):
     with pytest.raises(CommandError, match="number: version 5: not found"):
         call_command("decision_memo", str(draft.pk), "--version", "5", "-o", str(out))
     assert not out.exists()
+
+
+# ---- outcomes and study sources read from the records -------------------------------------------------
+
+@pytest.mark.django_db
+def test_memo_shows_expected_vs_realised_and_regret_once_an_outcome_is_recorded(approved, people):
+    svc.commit_decision(approved.pk, actor=people.ana, if_match=IF_MATCH_ANY)
+    before = text_of(memo_for_version(people.ana, approved.pk, 1))
+    assert "Outcomes: expected and realised" not in before
+    # The reservoir proved hot; the team stayed on gas (its chosen plan) and made 2.4M.
+    record_outcome(approved.pk, actor=people.ana, if_match=IF_MATCH_ANY, path={"a1": "hot"},
+                   realised_value=2400000, note="invented outcome")
+    text = text_of(memo_for_version(people.ana, approved.pk, 1))
+    assert "Outcomes: expected and realised" in text
+    # expected 2.5M (gas, every state), realised 2.4M, difference -0.1M; with hindsight of a
+    # hot reservoir the deep well pays 9M: regret 9M - 2.5M = 6.5M (SMALL_TABLE's payoffs).
+    assert "Chosen plan 2,500,000.00 2,400,000.00 -100,000.00 6,500,000.00" in text
+    assert "Regret (value the best plan in hindsight would have added): 6,500,000.00 EUR." in text
+    assert "The model gave what happened a probability of 0.4000." in text
+
+
+@pytest.mark.django_db
+def test_memo_shows_claimed_and_calibrated_accuracy_of_a_study_source(draft, people):
+    svc.save_version(draft.pk, actor=people.ana, document=load("heating_payoff_table.json"),
+                     if_match=IF_MATCH_ANY)
+    claimed = json.loads((Path(__file__).resolve().parent.parent / "fixtures"
+                          / "tellurion_claimed.json").read_text())
+    source = sources.create_source(actor=people.ana, team=people.team,
+                                   name="Tellurion Surveys (invented)", claimed=claimed)
+    for signal, state in (("favourable", "cold reservoir"), ("favourable", "hot reservoir")):
+        sources.add_record(actor=people.ana, source=source, date="2025-05-01", signal=signal,
+                           state=state)
+    version = sources.apply_source_to_study(actor=people.ana, decision=draft,
+                                            study_name="Tellurion seismic survey", source=source,
+                                            mode="claimed", if_match=IF_MATCH_ANY)
+    text = text_of(memo_for_version(people.ana, draft.pk, version.number))
+    assert "Study sources: claimed and calibrated accuracy" in text
+    assert "Tellurion Surveys (invented) (study 'Tellurion seismic survey')" in text
+    assert "Calibrated from 2 past studies; the claim counts as 10 studies of each state." in text
+    # hot reservoir -> favourable: Beta prior 8.5 + 1 record of 1 -> mean 9.5 / 11
+    # (Dirichlet count-adding, Gelman et al. 2013, sec. 3.4)
+    assert f"hot reservoir favourable 0.8500 {9.5 / 11:.4f}" in text
+    assert "Study 'Tellurion seismic survey': net value" in text

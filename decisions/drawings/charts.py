@@ -213,7 +213,8 @@ def tornado_chart(rows: Sequence[dict], *, base_value: float, currency: str = ""
         for v, inp in ((vl, row.get("low")), (vh, row.get("high"))):
             if inp is None:
                 continue
-            text = f"{float(inp):.4g}"
+            money_input = row.get("kind") not in ("probability", "likelihood")
+            text = _compact(float(inp)) if money_input else f"{float(inp):.4g}"
             xv = ax.x(v)
             left = xv < base_x or (xv == base_x and v == vl)
             d.add(String(xv + (-2 if left else 2), y + 3.5, text, fontName=FONT,

@@ -286,7 +286,7 @@ def sensitivity_section(data: dict, width: float) -> list:
                          _input_value(row["low"], kind), _input_value(row["high"], kind),
                          money(row["value_low"], ""),
                          money(row["value_high"], ""), money(row["swing"], "")])
-        out.append(_table(rows, [width - 4 * 78 - 2 * 66, 66, 66, 78, 78, 78], numeric_from=1))
+        out.append(_table(rows, [width - 2 * 62 - 3 * 78, 62, 62, 78, 78, 78], numeric_from=1))
     sweeps = sens.get("one_way") or []
     be_rows = [["Input", "Break-even value", "Plan below", "Plan above"]]
     for sweep in sweeps:
@@ -310,11 +310,16 @@ def sensitivity_section(data: dict, width: float) -> list:
 # ---- sources, sign-offs, outcomes --------------------------------------------------------------
 
 def sources_section(data: dict, width: float) -> list:
-    sources = [s for s in data.get("sources") or [] if s.get("calibration")]
+    sources = [s for s in data.get("sources") or [] if s.get("calibration") or s.get("message")]
     if not sources:
         return []
     out = [p("Study sources: claimed and calibrated accuracy", "h1")]
     for src in sources:
+        title = f"{src.get('name', 'Source')}" + (f" (study '{src['study']}')"
+                                                  if src.get("study") else "")
+        if not src.get("calibration"):
+            out += [p(t(title), "h2"), p(t(src["message"]))]
+            continue
         cal = src["calibration"]
         mass = cal.get("interval", 0.9)
         key = next((k for k in _first_cell(cal) if k.startswith("interval_")), None)
@@ -330,14 +335,14 @@ def sources_section(data: dict, width: float) -> list:
                              prob(c.get("posterior_mean")),
                              f"{prob(low)} – {prob(high)}" if low is not None else "n/a",
                              str(c.get("count", ""))])
-        title = f"{src.get('name', 'Source')}" + (f" (study '{src['study']}')"
-                                                  if src.get("study") else "")
         rows, more = _cut_rows(rows, "cells")
         out += [p(t(title), "h2"),
                 to_pdf_flowable(charts.accuracy_chart(chart_rows[:40], width=width)),
                 _table(rows, [width - 330, 80, 55, 60, 95, 40], numeric_from=2), *more,
                 p(t(f"Calibrated from {cal.get('records', 0)} past studies; the claim counts as "
-                    f"{cal.get('prior_strength', '')} studies of each state."), "small")]
+                    f"{float(cal.get('prior_strength') or 0):g} studies of each state."), "small")]
+        if src.get("message"):
+            out.append(p(t(src["message"])))
     return out
 
 
@@ -402,6 +407,8 @@ def outcomes_section(data: dict, width: float) -> list:
     n = len(rows[0]) - 1
     rows, more = _cut_rows(rows, "outcomes")
     out += [_table(rows, [width - n * 95] + [95] * n, numeric_from=1), *more]
+    if outcomes.get("probability") is not None:
+        out.append(p(f"The model gave what happened a probability of {prob(outcomes['probability'])}."))
     if outcomes.get("regret") is not None:
         out.append(p(f"<b>Regret</b> (value the best plan in hindsight would have added): "
                      f"{t(money(outcomes['regret'], cur))}."))

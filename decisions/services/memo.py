@@ -6,9 +6,11 @@ built from committed data after any change has been committed (STYLE.md, habit
 the plain dict assembled here, so the same memo can be rebuilt later from the
 same records and compared byte for byte (apart from the generation time).
 
-Outcomes and study-source calibrations are passed in as plain data
-(``outcomes=``, ``sources=``; shapes in ``decisions.memo.build``) by whoever
-records them; the memo prints those sections only when they are given.
+Outcomes and study sources reach the memo as plain data (shapes in
+``decisions.memo.build``): by default read here from the outcome in force for
+this version (``decisions.services.outcomes.review``) and from the sources its
+studies name (``decisions.services.sources``); a caller may pass its own. The
+memo prints those sections only when there is something to print.
 """
 
 from __future__ import annotations
@@ -20,11 +22,13 @@ from datetime import UTC, datetime
 from django.utils import timezone
 
 from decisions.memo.build import build_memo
-from decisions.models import AuditEvent, Decision, ModelVersion
+from decisions.models import AuditEvent, Decision, ModelVersion, StudySource
 from decisions.services.access import visible_decisions
 from decisions.services.decisions import get_version
-from decisions.services.errors import NotFoundError
+from decisions.services.errors import DomainError, NotFoundError
+from decisions.services.outcomes import current_outcome, review
 from decisions.services.signoff import policy_progress
+from decisions.services.sources import calibration, claimed_vs_calibrated
 
 __all__ = ["memo_data", "memo_filename", "memo_for_version", "memo_for_operator",
            "SENSITIVITY_NODE_LIMIT", "TORNADO_ROWS", "SWEEPS"]
@@ -76,9 +80,58 @@ def sensitivity_data(document: dict, results: dict) -> dict:
                      "other probabilities of the same node are rescaled to keep the sum 1.")}
 
 
+def outcomes_data(version: ModelVersion) -> dict | None:
+    """Expected vs realised and the regret, when an outcome is recorded for this version."""
+    outcome = current_outcome(version.decision)
+    if outcome is None or outcome.version_id != version.pk:
+        return None
+    try:
+        rv = review(version.decision)
+    except DomainError as exc:
+        return {"rows": [], "note": f"The review could not be computed: {exc}"}
+    hind = rv["hindsight"]
+    note = " ".join([rv["sound_given_what_was_known"]["statement"], hind["statement"],
+                     f"Recorded by {rv['outcome']['recorded_by']} on "
+                     f"{_utc(outcome.recorded_at)}"
+                     + (f" (corrected {rv['outcome']['corrections']} times)"
+                        if rv["outcome"]["corrections"] else "") + "."])
+    return {"rows": [{"label": "Chosen plan", "expected": rv["expected_at_approval"],
+                      "realised": rv["realised"], "regret": hind["regret"]}],
+            "regret": hind["regret"], "probability": rv["probability_of_what_happened"],
+            "note": note}
+
+
+def sources_data(version: ModelVersion, document: dict) -> list | None:
+    """Claimed vs calibrated accuracy of each study source this version's studies name."""
+    named = {s["source"]["id"]: s["name"] for s in document.get("studies") or []
+             if isinstance(s.get("source"), dict) and isinstance(s["source"].get("id"), int)}
+    if not named:
+        return None
+    sources = StudySource.objects.filter(pk__in=named, team_id=version.decision.team_id)
+    try:
+        compared = {e["study"]: e for e in claimed_vs_calibrated(version)["studies"]}
+    except DomainError:
+        compared = {}
+    out = []
+    for source in sources.order_by("name", "id"):
+        study = named[source.pk]
+        try:
+            cal = calibration(source)["calibration"]
+        except DomainError as exc:
+            out.append({"name": source.name, "study": study, "message": str(exc)})
+            continue
+        entry = compared.get(study) or {}
+        out.append({"name": source.name, "study": study, "calibration": cal,
+                    "message": entry.get("message") or entry.get("note") or ""})
+    return out or None
+
+
 def memo_data(version: ModelVersion, *, generated_at: datetime, sources: list | None = None,
               outcomes: dict | None = None, sensitivity: dict | None = None) -> dict:
-    """The plain dict ``build_memo`` takes, read from the records of ``version``."""
+    """The plain dict ``build_memo`` takes, read from the records of ``version``.
+
+    ``sources``, ``outcomes`` and ``sensitivity`` default to what the records hold.
+    """
     decision: Decision = version.decision
     document = json.loads(version.canonical_json)
     results = version.results
@@ -106,8 +159,8 @@ def memo_data(version: ModelVersion, *, generated_at: datetime, sources: list | 
         "policy": policy_progress(decision, version),
         "sensitivity": sensitivity if sensitivity is not None
         else sensitivity_data(document, results),
-        "sources": sources,
-        "outcomes": outcomes,
+        "sources": sources if sources is not None else sources_data(version, document),
+        "outcomes": outcomes if outcomes is not None else outcomes_data(version),
     }
 
 

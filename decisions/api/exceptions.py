@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from django.core.exceptions import PermissionDenied
+from django.db import IntegrityError, OperationalError
 from django.http import Http404
 from rest_framework import exceptions as drf
 from rest_framework.response import Response
@@ -33,6 +34,17 @@ def flatten(detail, location: str = "") -> list[dict[str, str]]:
 
 
 def api_exception_handler(exc, context):
+    if isinstance(exc, IntegrityError):
+        # A unique constraint caught a race the locks did not (e.g. two requests
+        # adding the same member at once): the loser is told to re-read, not a 500.
+        return Response({"errors": [{"location": "", "message": "a concurrent change "
+                                     "conflicted with this one; read again and retry"}],
+                         "code": "conflict"}, status=409)
+    if isinstance(exc, OperationalError) and "database is locked" in str(exc):
+        # SQLite's single writer was busy past the timeout: retryable, not a crash.
+        return Response({"errors": [{"location": "", "message": "the database is busy; "
+                                     "retry shortly"}], "code": "busy"},
+                        status=503, headers={"Retry-After": "1"})
     if isinstance(exc, DomainError):
         return Response({"errors": exc.as_list(), "code": exc.code}, status=exc.status)
     if isinstance(exc, BodyProblem):

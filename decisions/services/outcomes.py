@@ -247,8 +247,10 @@ def record_outcome(decision_id, *, actor, if_match: str | None, path: Any,
             if study_signal and study_signal != signal:
                 raise InvalidInput(f"the path records the signal {signal!r}, not "
                                    f"{study_signal!r}", location="study_signal")
-            previous = (Outcome.objects.select_for_update()
-                        .filter(decision=decision, superseded_by__isnull=True).first())
+            # No lock of its own: the decision row locked above already makes two
+            # outcomes of one decision take turns (the race: both would supersede the
+            # same row; the unique one-to-one would then refuse the second).
+            previous = Outcome.objects.filter(decision=decision, superseded_by__isnull=True).first()
             probability = math.prod(s["probability"] for s in steps if s["kind"] == "chance")
             now = timezone.now()
             outcome = Outcome.objects.create(

@@ -400,3 +400,34 @@ def test_memo_shows_claimed_and_calibrated_accuracy_of_a_study_source(draft, peo
     # (Dirichlet count-adding, Gelman et al. 2013, sec. 3.4)
     assert f"hot reservoir favourable 0.8500 {9.5 / 11:.4f}" in text
     assert "Study 'Tellurion seismic survey': net value" in text
+
+
+def test_certainty_equivalent_is_shown_when_a_risk_tolerance_is_set():
+    doc = load("heating_payoff_table.json")
+    results = valuation.evaluate(doc, risk_tolerance=2_000_000)
+    text = text_of(build_memo(demo_data(doc, results=results)))
+    assert f"Certainty equivalent (risk tolerance 2,000,000.00 EUR) " \
+           f"{cents(results['certainty_equivalent'])} EUR" in text
+
+
+def test_a_plan_in_words_only_keeps_the_recommended_risk_profile_and_says_so():
+    doc = small_table()
+    data = demo_data(doc, strategy={"recommended": False, "plan": {"source": "team",
+                     "alternative": None, "text": "Lease a mobile boiler for two winters"},
+                     "justification": "Bridges the tender (invented).", "value_given_up": 1.5,
+                     "chosen_by": "ana", "chosen_at": "2026-12-01 08:00:00 UTC"})
+    text = text_of(build_memo(data))
+    assert "Lease a mobile boiler for two winters" in text
+    assert "Value given up against the recommended plan: 1.50 EUR." in text
+    assert "the recommended plan (the chosen plan is described in words only" in text
+
+
+def test_revision_tables_follow_the_document_order_not_the_stored_key_order():
+    doc = load("heating_payoff_table.json")
+    data = demo_data(doc)
+    for study in data["results"]["studies"]:   # as jsonb might hand them back: keys re-sorted
+        study["signal_probabilities"] = dict(sorted(study["signal_probabilities"].items()))
+        study["joint"] = dict(sorted(study["joint"].items()))
+    text = text_of(build_memo(data))
+    assert text.index("hot 0.3500") < text.index("lukewarm 0.2100") < text.index("cold 0.4400")
+    assert text.index("hot reservoir 0.4000") < text.index("cold reservoir 0.6000")

@@ -189,6 +189,13 @@ def tree_section(data: dict, width: float, height: float) -> list:
 
 # ---- Bayesian revision ------------------------------------------------------------------------
 
+def _ordered(keys, preferred: list | None) -> list:
+    """``keys`` in the ``preferred`` order, any others after them in their own order."""
+    keys = list(keys)
+    first = [k for k in preferred or [] if k in keys]
+    return first + [k for k in keys if k not in first]
+
+
 def revision_section(data: dict, width: float) -> list:
     studies = data["results"].get("studies") or []
     if not studies:
@@ -199,12 +206,17 @@ def revision_section(data: dict, width: float) -> list:
              "and the joint probabilities; then, per signal, its probability, the revised "
              "(posterior) probabilities of the states and the best alternative after it.",
              "small")]
+    # Orders come from the model document: results stored in PostgreSQL's jsonb come
+    # back with their object keys re-sorted, the document's lists do not.
+    doc = data.get("document") or {}
+    doc_states = [st.get("name") for st in doc.get("states") or []]
+    doc_signals = {st.get("name"): list(st.get("signals") or []) for st in doc.get("studies") or []}
     for s in studies:
         block = [p(t(s["name"]), "h2")]
-        signals = list(s.get("signal_probabilities") or {})
+        signals = _ordered(s.get("signal_probabilities") or {}, doc_signals.get(s["name"]))
         shown = signals[:MAX_SIGNAL_COLUMNS]
         joint = s.get("joint") or {}
-        states = list(joint)
+        states = _ordered(joint, doc_states)
         prior = {st: sum(joint[st].values()) for st in states}
         head = ["State", "Prior"] + [f"P({sig} | state)" for sig in shown] + \
                [f"P(state, {sig})" for sig in shown]

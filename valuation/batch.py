@@ -331,13 +331,18 @@ def evaluate_batch(model: PayoffTable | FlatTree, settings: list[Setting], n_row
     else:
         per_row = 4 * model.size + 4 * len(model.parent)
     step = max(1, CHUNK_CELLS // max(per_row, 1))
+    # A tornado holds one setting per input: hand each chunk only the settings aimed at its
+    # rows, or the chunks x settings loop costs more than the arithmetic.
+    first_row = np.array([int(rows.min()) if len(rows) else n_rows for _, rows, _ in settings])
+    last_row = np.array([int(rows.max()) if len(rows) else -1 for _, rows, _ in settings])
     parts = []
     for r0 in range(0, n_rows, step):
         r1 = min(n_rows, r0 + step)
+        mine = [settings[m] for m in np.flatnonzero((first_row < r1) & (last_row >= r0))]
         if isinstance(model, PayoffTable):
-            parts.append(_table_batch(model, *_table_arrays(model, settings, r0, r1), r))
+            parts.append(_table_batch(model, *_table_arrays(model, mine, r0, r1), r))
         else:
-            parts.append(_tree_batch(model, *_tree_arrays(model, settings, r0, r1), r))
+            parts.append(_tree_batch(model, *_tree_arrays(model, mine, r0, r1), r))
     if len(parts) == 1:
         return parts[0]
     return BatchValues(

@@ -95,10 +95,11 @@ def to_svg(drawing: Drawing, *, id_prefix: str | None = None, title: str = "") -
 class _ScaledDrawing(Flowable):
     """A drawing scaled down (never up) to the width the frame offers."""
 
-    def __init__(self, drawing: Drawing, max_width: float | None, h_align: str):
+    def __init__(self, drawing: Drawing, max_width: float | None, h_align: str, draw: bool):
         super().__init__()
         self.drawing, self.max_width, self.hAlign = drawing, max_width, h_align
         self.scale = 1.0
+        self.enabled = draw
 
     def wrap(self, avail_width, avail_height):
         limit = min(avail_width, self.max_width or avail_width)
@@ -108,6 +109,8 @@ class _ScaledDrawing(Flowable):
         return self.width, self.height
 
     def draw(self):
+        if not self.enabled:
+            return
         self.canv.saveState()
         self.canv.scale(self.scale, self.scale)
         self.drawing.drawOn(self.canv, 0, 0)
@@ -115,6 +118,10 @@ class _ScaledDrawing(Flowable):
 
 
 def to_pdf_flowable(drawing: Drawing, *, max_width: float | None = None,
-                    h_align: str = "LEFT") -> Flowable:
-    """A platypus flowable of the drawing, shrunk to fit the frame's width if needed."""
-    return _ScaledDrawing(drawing, max_width, h_align)
+                    h_align: str = "LEFT", draw: bool = True) -> Flowable:
+    """A platypus flowable of the drawing, shrunk to fit the frame's width if needed.
+
+    ``draw=False`` keeps its size but paints nothing: a trial layout that only
+    needs to know where things land need not pay for rendering them.
+    """
+    return _ScaledDrawing(drawing, max_width, h_align, draw)

@@ -24,7 +24,8 @@ Large trees
 A part holds at most as many rows and columns as fit the frame. When a subtree
 does not fit, the biggest subtree that would fit a page on its own is cut off
 and drawn as a later part; the cut node shows "continued in part N" and the
-part it opens on repeats the incoming branch with "from part M". A node with
+part it opens on repeats the incoming branch with "from part M" (with ", p. P",
+the page, when the caller knows where the parts land). A node with
 more children than rows spreads its children over several parts. Above
 ``collapse_over`` nodes, branches pruned at decision nodes are drawn as one
 stub each stating how many nodes it stands for; parts beyond ``max_parts`` are
@@ -67,7 +68,7 @@ R = 4.5              # half size of a node symbol
 STUB = 7.0           # parent symbol to its connector
 MIN_COLUMN = 72.0    # narrower columns make labels unreadable: cut the tree into parts instead
 MAX_COLUMN = 150.0
-END_TEXT = 110.0    # room kept right of the deepest column for payoffs and markers
+END_TEXT = 120.0    # room kept right of the deepest column for payoffs and markers
 LEFT = 4.0
 TOP_PAD = 4.0
 PRUNE_MARK = 9.0     # room for the double-stroke mark at the start of a pruned branch
@@ -334,12 +335,19 @@ def _value_text(node: _Node) -> str:
     return "" if node.value is None else f"value {amount(node.value)}"
 
 
-def _right_text(node: _Node, plan: _Plan, value_word: str) -> tuple[str, Any, str]:
+def _ref(part: int, pages: dict[int, int] | None) -> str:
+    """"part 3", or "part 3, p. 7" when the page of each part is known."""
+    page = (pages or {}).get(part)
+    return f"part {part}" + (f", p. {page}" if page else "")
+
+
+def _right_text(node: _Node, plan: _Plan, value_word: str,
+                pages: dict[int, int] | None = None) -> tuple[str, Any, str]:
     """What a node without drawn children writes to its right: text, colour, font."""
     if id(node) in plan.cut:
         target = plan.cut[id(node)]
         if target:
-            return f"continued in part {target} »", ACCENT, FONT_BOLD
+            return f"continued in {_ref(target, pages)} »", ACCENT, FONT_BOLD
         return "not drawn: part limit reached", WARM, FONT_BOLD
     if id(node) in plan.collapsed:
         return f"pruned: {node.size - 1:,} nodes below not drawn", MUTED, FONT
@@ -355,7 +363,7 @@ def _right_text(node: _Node, plan: _Plan, value_word: str) -> tuple[str, Any, st
 
 
 def _draw_part(plan: _Plan, plans_total: int, width: float, rule: str,
-               value_word: str) -> TreePart:
+               value_word: str, pages: dict[int, int] | None) -> TreePart:
     r = plan.root
     ordered = _in_order(plan)
     depth = {id(r): 0}
@@ -368,7 +376,7 @@ def _draw_part(plan: _Plan, plans_total: int, width: float, rule: str,
     columns = 1 + max([depth[id(n)] for n, _ in ordered] or [0])
     # Room right of the deepest column: what its nodes write there, up to END_TEXT.
     deepest = [n for n, _ in ordered if depth[id(n)] == columns - 1] or [r]
-    need = max(text_width(_right_text(n, plan, value_word)[0], FONT_SIZE, FONT_BOLD)
+    need = max(text_width(_right_text(n, plan, value_word, pages)[0], FONT_SIZE, FONT_BOLD)
                for n in deepest) + R + 6
     col = min(MAX_COLUMN, (width - LEFT - min(END_TEXT, need)) / columns)
     leaves = [n for n, _ in ordered if not _kids(n, plan)] or [r]
@@ -434,7 +442,7 @@ def _draw_part(plan: _Plan, plans_total: int, width: float, rule: str,
     color, w, layer = _branch_style(plan.incoming, r)
     cv.line(layer, Line(LEFT, y, x - R, y, strokeColor=color, strokeWidth=w))
     texts_on_branch(LEFT, r, plan.incoming, title=r.name,
-                    note=f"from part {plan.from_part}" if plan.from_part else "")
+                    note=f"from {_ref(plan.from_part, pages)}" if plan.from_part else "")
     for node, branch in [(r, None), *ordered]:
         x, y = x_of(node), ys[id(node)]
         _symbol(cv, node, x, y)
@@ -448,13 +456,13 @@ def _draw_part(plan: _Plan, plans_total: int, width: float, rule: str,
             texts_on_branch(xa, node, branch)
         if _kids(node, plan):
             continue
-        text, colour, font = _right_text(node, plan, value_word)
+        text, colour, font = _right_text(node, plan, value_word, pages)
         right_text(node, text, color=colour, font=font)
     if plan.more_part is not None:
         y = row_y(n_rows - 1)
         first = plan.last + 1
         text = (f"branches {first}–{len(r.children)} of '{pdf_safe(r.name)}' continue in "
-                f"part {plan.more_part} »" if plan.more_part
+                f"{_ref(plan.more_part, pages)} »" if plan.more_part
                 else f"branches {first}–{len(r.children)} not drawn: part limit reached")
         start = x_of(r) + R + STUB + 3
         cv.text(start, y - ASCENT / 2, fit_text(text, width - 2 - start, FONT_SIZE, FONT_BOLD),
@@ -473,7 +481,7 @@ def _draw_part(plan: _Plan, plans_total: int, width: float, rule: str,
 
 def tree_parts(tree_doc: dict, details: dict | None = None, *, width: float = 480.0,
                height: float = 640.0, collapse_over: int = 600,
-               max_parts: int = 60) -> list[TreePart]:
+               max_parts: int = 60, pages: dict[int, int] | None = None) -> list[TreePart]:
     """Lay out and draw a general tree document as parts that each fit ``width`` x ``height``.
 
     Parameters
@@ -489,11 +497,15 @@ def tree_parts(tree_doc: dict, details: dict | None = None, *, width: float = 48
         Above this many nodes, subtrees behind pruned branches are drawn as one stub each.
     max_parts : int
         Parts beyond this number are not drawn; their markers say so.
+    pages : dict, optional
+        ``{part number: page}`` once the caller knows where each part lands; the
+        markers then name the page too. Sizes do not depend on it, so a second
+        layout with the pages lands every part on the same page as the first.
     """
     details = details or {}
     root, n_nodes = _build(tree_doc, details)
     collapse = n_nodes > collapse_over
-    max_rows = max(2, int((height - 2 * TOP_PAD) // ROW_HEIGHT))
+    max_rows = max(2, int((height - 2 * TOP_PAD - LINE) // ROW_HEIGHT))  # LINE: "from part"
     max_depth = max(1, int((width - LEFT - END_TEXT) // MIN_COLUMN) - 1)  # column 0: the stub
     plans = _split(root, max_rows, max_depth, collapse, max_parts)
     rule = ("Bold teal: the recommended branch at each decision; grey with a double stroke: "
@@ -508,7 +520,7 @@ def tree_parts(tree_doc: dict, details: dict | None = None, *, width: float = 48
                  f"a pruned branch is drawn as one stub.")
     # End nodes show their payoff and, when discounting changes it, the value it adds.
     value_word = "PV" if tree_doc.get("discount_rate") else "value"
-    return [_draw_part(p, len(plans), width, rule, value_word) for p in plans]
+    return [_draw_part(p, len(plans), width, rule, value_word, pages) for p in plans]
 
 
 def tree_drawings(tree_doc: dict, details: dict | None = None, **kwargs) -> list[Drawing]:

@@ -79,10 +79,8 @@ class _NumberedCanvas(Canvas):
         self.restoreState()
 
 
-def build_memo(memo_data: dict) -> bytes:
-    """The memo of one model version as PDF bytes (see the module docstring for the input)."""
+def _template(buf, memo_data: dict) -> BaseDocTemplate:
     decision, version = memo_data["decision"], memo_data["version"]
-    buf = io.BytesIO()
     doc = BaseDocTemplate(
         buf, pagesize=A4, leftMargin=MARGIN, rightMargin=MARGIN, topMargin=MARGIN,
         bottomMargin=FOOTER_HEIGHT + 12, invariant=1,
@@ -93,8 +91,40 @@ def build_memo(memo_data: dict) -> bytes:
     frame = Frame(doc.leftMargin, doc.bottomMargin, doc.width, doc.height, id="body",
                   leftPadding=0, rightPadding=0, topPadding=0, bottomPadding=0)
     doc.addPageTemplates([PageTemplate(id="memo", frames=[frame])])
-    story = sections.story(memo_data, frame_width=doc.width, frame_height=doc.height)
+    return doc
 
+
+def _tree_pages(memo_data: dict) -> dict[int, int]:
+    """Page of each tree part, from a trial layout of the sections up to the tree.
+
+    Nothing before the tree depends on the pages, and the parts' sizes do not either,
+    so the real build puts every part on the page found here. The trial paints
+    nothing (the costly part) and is skipped when the tree fits one part.
+    """
+    doc = _template(io.BytesIO(), memo_data)
+    w, h = doc.width, doc.height
+    tree = sections.tree_section(memo_data, w, h, draw=False)
+    if sum(1 for f in tree if getattr(f, "tree_part", None)) < 2:
+        return {}
+    pages: dict[int, int] = {}
+
+    def after(flowable):
+        number = getattr(flowable, "tree_part", None)
+        if number is not None:
+            pages.setdefault(number, doc.page)
+
+    doc.afterFlowable = after
+    doc.build([*sections.title_block(memo_data, w), *sections.summary(memo_data, w), *tree])
+    return pages
+
+
+def build_memo(memo_data: dict) -> bytes:
+    """The memo of one model version as PDF bytes (see the module docstring for the input)."""
+    decision, version = memo_data["decision"], memo_data["version"]
+    buf = io.BytesIO()
+    doc = _template(buf, memo_data)
+    story = sections.story(memo_data, frame_width=doc.width, frame_height=doc.height,
+                           tree_pages=_tree_pages(memo_data))
     note = pdf_safe(f"Decision {decision.get('id', '')} · version {version['number']} · "
                     f"SHA-256 {version['content_sha256']}")
 

@@ -20,7 +20,7 @@ from decisions.memo.profile import plan_profile
 from decisions.memo.styles import CAUTION, S, table_style
 from valuation.errors import ValuationError
 
-__all__ = ["story", "MAX_TABLE_ROWS"]
+__all__ = ["story", "title_block", "summary", "tree_section", "MAX_TABLE_ROWS"]
 
 #: Tables longer than this show their first rows and say how many more the API holds.
 MAX_TABLE_ROWS = 60
@@ -166,7 +166,14 @@ def _chosen_plan(data: dict, width: float) -> list:
 
 # ---- the tree ------------------------------------------------------------------------------
 
-def tree_section(data: dict, width: float, height: float) -> list:
+def tree_section(data: dict, width: float, height: float, *,
+                 pages: dict[int, int] | None = None, draw: bool = True) -> list:
+    """The tree's parts, each a caption and a drawing kept together.
+
+    ``pages`` (part -> page) lets the markers name pages; ``draw=False`` builds the
+    same flowables without painting, for the trial layout that finds those pages.
+    Each part's flowables carry ``tree_part`` (the part number) for that layout.
+    """
     out = [p("Decision tree", "h1")]
     document, results = data.get("document"), data["results"]
     if not document:
@@ -179,11 +186,15 @@ def tree_section(data: dict, width: float, height: float) -> list:
     if not details:
         out.append(p("Node values are not in the stored results (the tree is larger than the "
                      "per-node detail limit); the tree is drawn without them.", "small"))
-    parts = tree_parts(tree_doc, details, width=width, height=height - 70)
-    out.append(to_pdf_flowable(tree_legend(width)))
+    parts = tree_parts(tree_doc, details, width=width, height=height - 70, pages=pages)
+    out.append(to_pdf_flowable(tree_legend(width), draw=draw))
     for part in parts:
-        out.append(KeepTogether([p(t(part.caption), "small"), to_pdf_flowable(part.drawing),
-                                 Spacer(1, 6)]))
+        drawing = to_pdf_flowable(part.drawing, draw=draw)
+        caption = p(t(part.caption), "small")
+        kept = KeepTogether([caption, drawing, Spacer(1, 6)])
+        for flowable in (caption, drawing, kept):
+            flowable.tree_part = part.number
+        out.append(kept)
     return out
 
 
@@ -442,12 +453,13 @@ def notes_section(data: dict) -> list:
     return [p("Notes", "h1"), *[p(t(n), "small") for n in notes]]
 
 
-def story(data: dict, *, frame_width: float, frame_height: float) -> list:
+def story(data: dict, *, frame_width: float, frame_height: float,
+          tree_pages: dict[int, int] | None = None) -> list:
     w = frame_width
     return [
         *title_block(data, w),
         *summary(data, w),
-        *tree_section(data, w, frame_height),
+        *tree_section(data, w, frame_height, pages=tree_pages),
         *revision_section(data, w),
         *risk_section(data, w),
         *sensitivity_section(data, w),

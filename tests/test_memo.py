@@ -24,7 +24,7 @@ from decisions.services import signoff as signing
 from decisions.services import sources
 from decisions.services.errors import NotFoundError
 from decisions.services.locking import IF_MATCH_ANY
-from decisions.services.memo import memo_for_version, sensitivity_data
+from decisions.services.memo import SENSITIVITY_NODE_LIMIT, memo_for_version, sensitivity_data
 from decisions.services.outcomes import record_outcome
 from tests.personas import PASSWORD, small_table
 from tests.test_drawings import big_tree, load
@@ -439,3 +439,12 @@ def test_revision_tables_follow_the_document_order_not_the_stored_key_order():
     text = text_of(build_memo(data))
     assert text.index("hot 0.3500") < text.index("lukewarm 0.2100") < text.index("cold 0.4400")
     assert text.index("hot reservoir 0.4000") < text.index("cold reservoir 0.6000")
+
+
+def test_sensitivity_is_not_computed_for_a_model_above_the_limit_and_the_memo_says_so():
+    doc = big_tree(SENSITIVITY_NODE_LIMIT + 50)
+    out = sensitivity_data(doc, {})
+    assert "tornado" not in out
+    assert out["note"].startswith(f"The model has more than {SENSITIVITY_NODE_LIMIT:,} nodes")
+    text = text_of(build_memo(demo_data(small_table(), sensitivity=out)))
+    assert f"Sensitivity not computed. The model has more than {SENSITIVITY_NODE_LIMIT:,}" in text

@@ -7,16 +7,21 @@ foreign decision is a 404); changes go through ``decisions.services`` and their
 
 from __future__ import annotations
 
-from django.contrib.auth.decorators import login_required
+from django.contrib.auth import views as auth_views
 from django.shortcuts import render
 
 from decisions.services.access import visible_teams
 from decisions.web.queries import dashboard_groups
 
 
-@login_required
 def home(request):
-    """The dashboard: what waits for the user's sign-off first, then every decision by status."""
+    """The dashboard: what waits for the user's sign-off first, then every decision by status.
+
+    A visitor who is not signed in gets the sign-in form here rather than a redirect
+    (every other page redirects to it), so the site's front door always answers.
+    """
+    if not request.user.is_authenticated:
+        return auth_views.LoginView.as_view()(request)
     waiting, groups = dashboard_groups(request.user)
     return render(request, "web/dashboard.html", {
         "waiting": waiting, "groups": groups, "teams": list(visible_teams(request.user)),

@@ -451,3 +451,12 @@ def test_a_cost_minimising_tree_breaks_even_where_expected_costs_are_equal():
     assert [b["value"] for b in one_way(doc, "nodes[1].branches[0].probability")["break_even"]] == \
         [pytest.approx(0.375, rel=1e-12)]
     assert res["value"] == [45.0, 40.0, 20.0]
+
+
+@pytest.mark.parametrize("module", ["valuation.parameters", "valuation.sensitivity"])
+def test_the_docstring_examples_hold(module):
+    import doctest
+    import importlib
+
+    failed, attempted = doctest.testmod(importlib.import_module(module))
+    assert attempted > 0 and failed == 0

@@ -359,6 +359,21 @@ def tornado(doc: Any, *, swing: float = 0.2, probability_step: float = 0.1,
     Raises
     ------
     ModelValidationError, ParameterError
+
+    Examples
+    --------
+    Drill (+600,000 wet / -200,000 dry) or not, P(wet) = 0.4 (inputs of the seismic
+    example in Samuelson & Marks, *Managerial Economics*, ch. 13; swings computed):
+
+    >>> doc = {"kind": "payoff_table", "states": [{"name": "wet", "probability": 0.4},
+    ...        {"name": "dry", "probability": 0.6}], "alternatives": [
+    ...        {"name": "Drill", "payoffs": {"wet": 600000, "dry": -200000}},
+    ...        {"name": "Don't drill", "payoffs": {"wet": 0, "dry": 0}}]}
+    >>> for row in tornado(doc)[:3]:
+    ...     print(row["name"], round(row["swing"]))
+    states[0].probability 160000
+    states[1].probability 160000
+    alternatives[0].payoffs.wet 96000
     """
     r, model, specs = _prepare(doc, risk_tolerance)
     for name, val in (("swing", swing), ("probability_step", probability_step)):
@@ -429,6 +444,17 @@ def two_way(doc: Any, param_x: str, values_x, param_y: str, values_y, *,
     Raises
     ------
     ModelValidationError, ParameterError
+
+    Examples
+    --------
+    >>> doc = {"kind": "payoff_table", "states": [{"name": "oil", "probability": 0.25},
+    ...        {"name": "dry", "probability": 0.75}], "alternatives": [
+    ...        {"name": "Drill", "payoffs": {"oil": 700, "dry": -100}},
+    ...        {"name": "Sell", "payoffs": {"oil": 90, "dry": 90}}]}
+    >>> grid = two_way(doc, "states[0].probability", [0.1, 0.5],
+    ...                "alternatives[1].payoffs.dry", [90, 600])
+    >>> grid["labels"], grid["best"]
+    (['Sell', 'Drill'], [[0, 1], [0, 0]])
     """
     r, model, specs = _prepare(doc, risk_tolerance)
     sx, sy = find_parameter(specs, param_x), find_parameter(specs, param_y)

@@ -66,7 +66,7 @@ ROW_BOTTOM = 18.5    # ... and this far below it
 ROW_HEIGHT = ROW_TOP + ROW_BOTTOM + 1.0
 R = 4.5              # half size of a node symbol
 STUB = 7.0           # parent symbol to its connector
-MIN_COLUMN = 72.0    # narrower columns make labels unreadable: cut the tree into parts instead
+MIN_COLUMN = 70.0    # narrower columns make labels unreadable: cut the tree into parts instead
 MAX_COLUMN = 150.0
 END_TEXT = 120.0    # room kept right of the deepest column for payoffs and markers
 LEFT = 4.0
@@ -87,6 +87,7 @@ class _Node:
     children: list = field(default_factory=list)   # [(_Branch, _Node)]
     on_plan: bool = True
     size: int = 1             # nodes in the subtree (itself included)
+    height: int = 0           # levels below the node (0 for an end node)
 
 
 @dataclass
@@ -158,6 +159,7 @@ def _build(tree_doc: dict, details: dict) -> tuple[_Node, int]:
             order.append(child)
     for node in reversed(order):
         node.size = 1 + sum(c.size for _, c in node.children)
+        node.height = 1 + max((c.height for _, c in node.children), default=-1)
     return root, len(order)
 
 
@@ -223,7 +225,10 @@ def _split(root: _Node, max_rows: int, max_depth: int, collapse: bool,
         plan.last = len(r.children)
         if plan.last - plan.first > max_rows:
             plan.last = plan.first + max_rows - 1
-        # Collapse pruned subtrees (big trees only) and cut at the depth limit.
+        # Collapse pruned subtrees (big trees only). A subtree too deep for the rest of
+        # this part is cut off where it would fit a part of its own (so later parts
+        # are full and few, rather than many stubs at the depth limit); a subtree too
+        # deep even for that goes on down, and is cut at the limit at the latest.
         depth_of = {id(r): 0}
         walk = [r]
         inner: list[_Node] = []
@@ -235,7 +240,8 @@ def _split(root: _Node, max_rows: int, max_depth: int, collapse: bool,
                     continue
                 if collapse and branch.pruned:
                     plan.collapsed.add(id(child))
-                elif depth_of[id(child)] >= max_depth:
+                elif depth_of[id(child)] + child.height > max_depth and (
+                        child.height <= max_depth or depth_of[id(child)] >= max_depth):
                     plan.cut[id(child)] = -1
                 else:
                     inner.append(child)

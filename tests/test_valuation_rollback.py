@@ -149,3 +149,37 @@ def test_the_one_pass_reader_declines_what_the_validating_reader_refuses():
         target[path[-1]] = value
         assert _build_fast(changed) is None, path
         assert build_tree(changed, Problems()) is None, path
+
+
+def test_merged_risk_profile_groups_equal_array_split_and_average():
+    # The original per-group loop, kept here as the reference for _merge_groups.
+    from valuation.tree_eval import _merge_groups
+
+    rng = np.random.default_rng(3)
+    for size in (5001, 12345, 60000):
+        uniq = np.sort(rng.standard_normal(size) * 1e6)
+        mass = rng.random(size)
+        mass[rng.integers(0, size, 50)] = 0.0
+        groups = np.array_split(np.arange(size), 5000)
+        means = np.array([np.average(uniq[g], weights=mass[g] + 1e-300) for g in groups])
+        totals = np.array([mass[g].sum() for g in groups])
+        got_means, got_totals = _merge_groups(uniq, mass, 5000)
+        assert np.array_equal(got_means, means) and np.array_equal(got_totals, totals)
+
+
+def test_payoff_rows_in_any_key_order_read_the_same_as_cell_by_cell():
+    from valuation.evaluate import parse
+
+    states = [f"s{j}" for j in range(6)]
+    rnd = random.Random(5)
+    rows = [{s: rnd.choice([rnd.randint(-9, 9), rnd.uniform(-1e6, 1e6)]) for s in states} for _ in range(4)]
+    shuffled = []
+    for row in rows:
+        keys = list(row)
+        rnd.shuffle(keys)
+        shuffled.append({k: row[k] for k in keys})
+    doc = {"kind": "payoff_table", "title": "order",
+           "states": [{"name": s, "probability": 1 / 8 if j < 4 else 1 / 4} for j, s in enumerate(states)],
+           "alternatives": [{"name": f"a{i}", "payoffs": r} for i, r in enumerate(shuffled)]}
+    table = parse(doc)
+    assert table.payoffs.tolist() == [[float(r[s]) for s in states] for r in rows]

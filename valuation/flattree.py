@@ -17,7 +17,10 @@ property (see ``valuation.utility``).
 
 from __future__ import annotations
 
+import operator
 from dataclasses import dataclass, field
+from itertools import chain, compress, repeat
+from itertools import count as count_from
 from typing import Any
 
 import numpy as np
@@ -225,24 +228,55 @@ def _finish(common, ids, names, kind, payoff, root, parent, child, prob, cash, l
 
 
 # -- the fast reader -----------------------------------------------------------------------
+#
+# The checked reader spends its time in Python per node and per branch. The fast
+# reader reads the document column by column instead: ``map(dict.get, items,
+# repeat(key))`` pulls one field out of every node (or every branch) in a C loop, and
+# each rule is then checked on the whole column at once (``set(map(type, column))``,
+# ``min(map(len, ...))``, numpy comparisons). No object is made per node beyond the
+# list slots. Each check below mirrors one in ``_build_checked``/``_read_branches``
+# and declines on anything those would report (or on anything unusual, such as a
+# subclass of dict or a bool): the checked reader then decides and words the problems.
 
 
-def _name_ok(value) -> bool:
-    """Problems.name without the message: a non-blank str, not too long, no NUL."""
-    return (type(value) is str and 0 < len(value) <= MAX_NAME_LENGTH and not value.isspace()
-            and "\x00" not in value)
+def _names_ok(values: list) -> bool:
+    """``Problems.name`` over a column: non-blank str, at most MAX_NAME_LENGTH, no NUL."""
+    if not values:
+        return True
+    if set(map(type, values)) != {str}:
+        return False
+    lengths = np.fromiter(map(len, values), dtype=np.int64, count=len(values))
+    if int(lengths.min()) == 0 or int(lengths.max()) > MAX_NAME_LENGTH:
+        return False
+    return "\x00" not in "".join(values) and not any(map(str.isspace, values))
 
 
-def _time_ok(raw) -> float | None:
-    """``_time`` of a present value without the message; None when it breaks a rule."""
-    t = type(raw)
-    if (t is float or t is int) and 0 <= raw <= MAX_TIME_YEARS:
-        return float(raw)
-    return None
+def _numbers(values: list) -> np.ndarray | None:
+    """``Problems.number`` over a column (int or float, not bool, finite) as a float array."""
+    if not values:
+        return np.zeros(0)
+    if not set(map(type, values)) <= {int, float}:
+        return None
+    arr = np.array(values, dtype=float)
+    return arr if bool(np.isfinite(arr).all()) else None
+
+
+def _dated(times: list, amounts: np.ndarray, raw_amounts: list, rate) -> bool:
+    """Apply ``_time`` and ``_discount`` to the entries that carry a time; False on a bad time."""
+    if times.count(None) == len(times):
+        return True
+    for j, raw in enumerate(times):
+        if raw is None:
+            continue
+        t = type(raw)
+        if not ((t is float or t is int) and 0 <= raw <= MAX_TIME_YEARS):
+            return False
+        amounts[j] = _discount(float(raw_amounts[j]), float(raw), rate)
+    return True
 
 
 def _build_fast(doc) -> FlatTree | None:
-    """Read a valid document in one pass; None at the first doubt (the checked reader decides)."""
+    """Read a valid document column by column; None at the first doubt (see above)."""
     if type(doc) is not dict:
         return None
     scratch = Problems()
@@ -253,156 +287,123 @@ def _build_fast(doc) -> FlatTree | None:
     if (scratch or type(nodes) is not list or not nodes or len(nodes) > MAX_TREE_NODES
             or type(root_id) is not str):
         return None
-    objective, rate = common[2], common[3]
     try:
-        scanned = _scan(nodes, rate)
-        if scanned is None:
-            return None
-        ids, names, kinds, pay, count, to_l, prob_l, label_l, cash_at, cash_amount = scanned
-        n, m = len(ids), len(to_l)
-        index = dict(zip(ids, range(n), strict=True))
-        if len(index) != n:  # a duplicate id
-            return None
-        root = index.get(root_id)
-        if root is None:
-            return None
-        child = np.fromiter(map(index.__getitem__, to_l), dtype=np.int64, count=m)
-        payoff = np.array(pay, dtype=float)
-        cash = np.zeros(m)
-        if cash_at:
-            cash[cash_at] = cash_amount
-        prob = np.array(prob_l, dtype=float)
+        return _read_columns(nodes, root_id, common)
     except (KeyError, TypeError, ValueError, OverflowError):
         return None
-    kind = np.frombuffer(bytes(kinds), dtype=np.int8).copy()
-    count_a = np.array(count, dtype=np.int64)
-    offsets = np.cumsum(count_a) - count_a
-    first = np.where(count_a > 0, offsets, -1)
-    parent = np.repeat(np.arange(n, dtype=np.int64), count_a)
+
+
+def _read_columns(nodes: list, root_id: str, common) -> FlatTree | None:
+    objective, rate = common[2], common[3]
+    get = dict.get
+    n = len(nodes)
+    if set(map(type, nodes)) != {dict} or not set(chain.from_iterable(nodes)) <= _NODE_FIELDS:
+        return None
+    ids = list(map(get, nodes, repeat("id")))
+    if not _names_ok(ids):
+        return None
+    index = dict(zip(ids, range(n), strict=True))
+    root = index.get(root_id)
+    if len(index) != n or root is None:  # a duplicate id, or an unknown root
+        return None
+    kind = np.array(list(map(_KINDS.__getitem__, map(get, nodes, repeat("kind")))), dtype=np.int8)
+    names = list(map(get, nodes, repeat("name"), ids))
+    if set(map(type, names)) != {str}:
+        names = [nm if isinstance(nm, str) else nid for nm, nid in zip(names, ids, strict=True)]
+    is_end = (kind == END).tolist()
+    # End nodes: a finite payoff, an optional time, no branches.
+    ends = list(compress(nodes, is_end))
+    raw_pay = list(map(get, ends, repeat("payoff")))
+    pay = _numbers(raw_pay)
+    if pay is None or any(map(get, ends, repeat("branches"))):
+        return None
+    if not _dated(list(map(get, ends, repeat("time"))), pay, raw_pay, rate):
+        return None
+    # Decision and chance nodes: a non-empty list of branches each.
+    inner = list(compress(nodes, map(operator.not_, is_end)))
+    lists = list(map(get, inner, repeat("branches")))
+    if lists and (set(map(type, lists)) != {list} or min(map(len, lists)) == 0):
+        return None
+    branches = list(chain.from_iterable(lists))
+    m = len(branches)
+    if m and (set(map(type, branches)) != {dict}
+              or not set(chain.from_iterable(branches)) <= _BRANCH_FIELDS):
+        return None
+    labels = list(map(get, branches, repeat("label")))
+    # Number the distinct labels (documents repeat a handful of labels), check each
+    # distinct label once, and look for a label repeated within one node.
+    numbers: dict[str, int] = {}
+    code = np.fromiter(map(numbers.setdefault, labels, count_from(0)), dtype=np.int64, count=m)
+    if not _names_ok(list(numbers)):
+        return None
+    count = np.zeros(n, dtype=np.int64)
+    count[kind != END] = np.fromiter(map(len, lists), dtype=np.int64, count=len(lists))
+    parent = np.repeat(np.arange(n, dtype=np.int64), count)
+    if m and _repeated_label(parent, code, count, list(numbers.values())):
+        return None
+    child = np.fromiter(map(index.__getitem__, map(get, branches, repeat("to"))), dtype=np.int64,
+                        count=m)
+    # Probabilities: numbers within [0, 1] on chance branches, absent (or null) elsewhere.
+    chance_branch = kind[parent] == CHANCE
+    raw_prob = list(map(get, branches, repeat("probability")))
+    on_chance = chance_branch.tolist()
+    given = list(compress(raw_prob, on_chance))
+    if not set(compress(raw_prob, map(operator.not_, on_chance))) <= {None}:
+        return None
+    pc = _numbers(given)
+    if pc is None or not bool(((pc >= 0.0) & (pc <= 1.0)).all()):
+        return None
+    prob = np.zeros(m)
+    prob[chance_branch] = pc
+    if not _sums_to_one(pc, count[kind == CHANCE], given):
+        return None
+    raw_cash = list(map(get, branches, repeat("cash_flow"), repeat(0)))
+    cash = _numbers(raw_cash)
+    if cash is None or not _dated(list(map(get, branches, repeat("time"))), cash, raw_cash, rate):
+        return None
+    payoff = np.zeros(n)
+    payoff[kind == END] = pay
     if objective != "max":
         # Same bits as the checked reader's ``sign * amount`` (zeros become -0.0 there too).
         cash *= -1.0
         payoff = np.where(kind == END, -payoff, 0.0)
-    return _finish(common, ids, names, kind, payoff, root, parent, child, prob, cash, label_l,
-                   first, count_a, Problems())
+    offsets = np.cumsum(count) - count
+    first = np.where(count > 0, offsets, -1)
+    return _finish(common, ids, names, kind, payoff, root, parent, child, prob, cash, labels,
+                   first, count, Problems())
 
 
-def _scan(nodes: list, rate):
-    """The one pass over the nodes; None at the first rule broken (no message is built).
-
-    Every check here mirrors one in ``_build_checked``/``_read_branches``; the tight
-    loop (local names, ``type(x) is``) is what makes a million nodes cheap.
-    """
-    n = len(nodes)
-    ids: list[str] = []
-    names: list[str] = []
-    kinds = bytearray(n)
-    pay: list = [0.0] * n
-    count = [0] * n
-    to_l: list = []
-    prob_l: list = []
-    label_l: list[str] = []
-    cash_at: list[int] = []
-    cash_amount: list[float] = []
-    ids_append, names_append = ids.append, names.append
-    to_append, prob_append, label_append = to_l.append, prob_l.append, label_l.append
-    node_fields, branch_fields, kinds_of = _NODE_FIELDS, _BRANCH_FIELDS, _KINDS
-    name_ok, tol, max_len = _name_ok, PROBABILITY_SUM_TOLERANCE, MAX_NAME_LENGTH
-    for i, node in enumerate(nodes):
-        if type(node) is not dict or not node.keys() <= node_fields:
-            return None
-        nid = node.get("id")
-        if (type(nid) is not str or not 0 < len(nid) <= max_len or nid.isspace()
-                or "\x00" in nid):
-            return None
-        ids_append(nid)
-        nm = node.get("name", nid)
-        names_append(nm if isinstance(nm, str) else nid)
-        k = kinds_of[node.get("kind")]
-        if k == END:
-            v = node.get("payoff")
-            tv = type(v)
-            if tv is float:
-                if v - v != 0.0:  # inf or nan
-                    return None
-            elif tv is not int:
-                return None
-            if len(node) > 3:
-                if node.get("branches"):
-                    return None
-                raw = node.get("time")
-                if raw is not None:
-                    t = _time_ok(raw)
-                    if t is None:
-                        return None
-                    if rate and t:
-                        v = float(v) / (1.0 + rate) ** t
-            pay[i] = v
-            continue
-        kinds[i] = k
-        branches = node.get("branches")
-        if type(branches) is not list or not branches:
-            return None
-        nb = len(branches)
-        count[i] = nb
-        if k == CHANCE:
-            total = 0.0
-            for br in branches:
-                if type(br) is not dict or not br.keys() <= branch_fields:
-                    return None
-                label = br.get("label")
-                if not name_ok(label):
-                    return None
-                label_append(label)
-                to_append(br.get("to"))
-                p = br.get("probability")
-                tp = type(p)
-                if not ((tp is float or tp is int) and 0.0 <= p <= 1.0):
-                    return None
-                total += p
-                prob_append(p)
-                if len(br) > 3 and not _extras(br, rate, len(to_l) - 1, cash_at, cash_amount):
-                    return None
-            if abs(total - 1.0) > tol:
-                return None
-        else:
-            for br in branches:
-                if type(br) is not dict or not br.keys() <= branch_fields:
-                    return None
-                label = br.get("label")
-                if not name_ok(label):
-                    return None
-                label_append(label)
-                to_append(br.get("to"))
-                if len(br) > 2:
-                    if br.get("probability") is not None:
-                        return None
-                    if not _extras(br, rate, len(to_l) - 1, cash_at, cash_amount):
-                        return None
-            prob_l.extend([0.0] * nb)
-        if nb > 1 and len(set(label_l[-nb:])) != nb:  # a duplicate label
-            return None
-    return ids, names, kinds, pay, count, to_l, prob_l, label_l, cash_at, cash_amount
-
-
-def _extras(br: dict, rate, at: int, cash_at: list, cash_amount: list) -> bool:
-    """Cash flow and time of a branch that has them; False when one breaks a rule."""
-    cf = br.get("cash_flow", 0)
-    tc = type(cf)
-    if tc is float:
-        if cf - cf != 0.0:
-            return False
-    elif tc is not int:
+def _repeated_label(parent: np.ndarray, code: np.ndarray, count: np.ndarray, used: list) -> bool:
+    """Whether some node has two branches with the same label number."""
+    distinct = len(used)
+    if distinct == len(code):
         return False
-    raw = br.get("time")
-    t = 0.0
-    if raw is not None:
-        t = _time_ok(raw)
-        if t is None:
+    dense = np.zeros(len(code), dtype=np.int64)
+    dense[used] = np.arange(distinct)
+    code = dense[code]  # numbers 0 .. distinct - 1
+    if distinct <= 63:
+        # One bit per label: a node repeats a label iff its OR has fewer bits than branches.
+        inner = count > 0
+        bits = np.bitwise_or.reduceat(np.left_shift(1, code), (np.cumsum(count) - count)[inner])
+        return bool(np.any(np.bitwise_count(bits) != count[inner]))
+    key = np.sort(parent * distinct + code)
+    return bool(np.any(key[1:] == key[:-1]))
+
+
+def _sums_to_one(p: np.ndarray, counts: np.ndarray, raw: list) -> bool:
+    """Each chance node's probabilities sum to 1 within the tolerance, added up as the checked
+    reader does (left to right, from 0.0); numpy's sum only screens, near the limit the
+    node is added up again in Python so that both readers agree to the last bit."""
+    if not len(counts):
+        return True
+    starts = np.cumsum(counts) - counts
+    rough = np.abs(np.add.reduceat(p, starts) - 1.0)
+    for j in np.flatnonzero(rough > PROBABILITY_SUM_TOLERANCE - 1e-9).tolist():
+        total = 0.0
+        for q in raw[int(starts[j]):int(starts[j] + counts[j])]:
+            total += q
+        if abs(total - 1.0) > PROBABILITY_SUM_TOLERANCE:
             return False
-    if cf or (tc is float and cf == 0.0):
-        cash_at.append(at)
-        cash_amount.append(_discount(float(cf), t, rate))
     return True
 
 

@@ -225,3 +225,17 @@ def test_numbers_in_the_result_are_plain_floats():
             assert not isinstance(value, np.generic), value
 
     walk(result)
+
+
+def test_a_signal_probability_a_rounding_step_above_one_still_expands():
+    # Found by hypothesis: four states whose prior sums to 1 in exact arithmetic but whose
+    # joint column sums to 1.0000000000000002 in floating point.
+    doc = {"kind": "payoff_table", "title": "t",
+           "states": [{"name": f"s{i}", "probability": p} for i, p in
+                      enumerate([0.1, 0.2, 0.3, 0.4])],
+           "alternatives": [{"name": "a", "payoffs": {f"s{i}": i for i in range(4)}}],
+           "studies": [{"name": "s", "cost": 0, "signals": ["only"],
+                        "likelihoods": {f"s{i}": {"only": 1.0} for i in range(4)}}]}
+    tree = valuation.expand(doc)
+    assert valuation.validate(tree) == []
+    assert valuation.evaluate(doc, risk_tolerance=50)["studies"][0]["evsi"] == 0.0

@@ -27,6 +27,11 @@ def expanded_size(t: PayoffTable) -> int:
     return total + (1 if t.studies else 0)
 
 
+def _clip(p) -> float:
+    """A computed probability may land a rounding step outside [0, 1] (1.0000000000000002)."""
+    return min(1.0, max(0.0, float(p)))
+
+
 def _decision_block(t, prefix, probs, nodes, title):
     """A decision over the alternatives, each followed by a chance node over the states."""
     decide = f"{prefix}decide"
@@ -37,7 +42,7 @@ def _decision_block(t, prefix, probs, nodes, title):
         state_branches = []
         for j, state in enumerate(t.states):
             end = f"{prefix}a{i}/s{j}"
-            state_branches.append({"label": state, "probability": float(probs[j]), "to": end})
+            state_branches.append({"label": state, "probability": _clip(probs[j]), "to": end})
             nodes.append({"id": end, "kind": "end", "payoff": float(t.payoffs[i, j])})
         nodes.append({"id": chance, "kind": "chance", "name": "State", "branches": state_branches})
     nodes.append({"id": decide, "kind": "decision", "name": title, "branches": branches})
@@ -65,7 +70,7 @@ def expand_table(t: PayoffTable) -> dict:
                 sub = _decision_block(t, f"study{k}/g{g}/", probs, nodes,
                                       f"Alternative after '{sig}'")
                 signal_branches.append({"label": sig, "to": sub,
-                                        "probability": float(rev.signal_probability[g])})
+                                        "probability": _clip(rev.signal_probability[g])})
             nodes.append({"id": signal_node, "kind": "chance", "name": f"{study.name}: signal",
                           "branches": signal_branches})
             branch = {"label": study.name, "to": signal_node}

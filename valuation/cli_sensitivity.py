@@ -97,14 +97,15 @@ def _compute(args, doc) -> tuple[str, object]:
         return "list", list_parameters(doc)
     if args.parameter:
         values = _numbers("--values", args.values)
-        return "one_way", one_way(doc, args.parameter, values, points=args.points or 41,
+        points = 41 if args.points is None else args.points
+        return "one_way", one_way(doc, args.parameter, values, points=points,
                                   low=args.low, high=args.high, risk_tolerance=r)
     if args.tornado:
         rows = tornado(doc, swing=args.swing, probability_step=args.probability_step,
                        risk_tolerance=r)
         return "tornado", rows[: args.top] if args.top else rows
     px, py = args.two_way
-    points = args.points or 11
+    points = 11 if args.points is None else args.points
     xs = _numbers("--x-values", args.x_values) or sweep_points(doc, px, points=points)
     ys = _numbers("--y-values", args.y_values) or sweep_points(doc, py, points=points)
     return "two_way", two_way(doc, px, xs, py, ys, risk_tolerance=r)

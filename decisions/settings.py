@@ -12,6 +12,10 @@ Variables (all optional unless stated):
 - ``CSRF_TRUSTED_ORIGINS``: comma-separated origins behind a proxy.
 - ``SECURE_SSL``: ``true`` behind HTTPS (secure cookies, HSTS, redirect).
 - ``MAX_REQUEST_BYTES``: largest request body accepted (default 2,621,440).
+- ``CACHE_URL``: ``locmem://`` (default, per process) or ``db://TABLE`` (shared by
+  every app server; run ``manage.py createcachetable``). Holds the login throttle.
+- ``LOGIN_FAILURE_LIMIT`` / ``LOGIN_LOCKOUT_SECONDS``: failed sign-ins per
+  username and address before a lockout, and its length (default 5 and 900).
 - ``API_TOKEN_RATE`` / ``API_EVALUATE_RATE``: DRF throttle rates for ``/api/token/``
   and ``/api/evaluate/`` (default ``20/min`` and ``120/min``; fairness, not security).
 """
@@ -22,6 +26,7 @@ import os
 from pathlib import Path
 
 import dj_database_url
+from django.core.exceptions import ImproperlyConfigured
 
 from decisions.envconfig import env_bool, env_int, env_list, secret_key
 
@@ -50,6 +55,7 @@ INSTALLED_APPS = [
 
 MIDDLEWARE = [
     "django.middleware.security.SecurityMiddleware",
+    "decisions.middleware.SecurityHeadersMiddleware",
     "whitenoise.middleware.WhiteNoiseMiddleware",
     "django.contrib.sessions.middleware.SessionMiddleware",
     "django.middleware.common.CommonMiddleware",
@@ -57,6 +63,8 @@ MIDDLEWARE = [
     "django.contrib.auth.middleware.AuthenticationMiddleware",
     "django.contrib.messages.middleware.MessageMiddleware",
     "django.middleware.clickjacking.XFrameOptionsMiddleware",
+    # Innermost, so that a view's database failure becomes 503 + Retry-After.
+    "decisions.middleware.DatabaseUnavailableMiddleware",
 ]
 
 ROOT_URLCONF = "decisions.urls"
@@ -96,6 +104,9 @@ def _database() -> dict:
 
 DATABASES = {"default": _database()}
 DEFAULT_AUTO_FIELD = "django.db.models.BigAutoField"
+
+# The model backend behind a per-(username, address) lockout (decisions/throttle.py).
+AUTHENTICATION_BACKENDS = ["decisions.throttle.ThrottledModelBackend"]
 
 AUTH_PASSWORD_VALIDATORS = [
     {"NAME": "django.contrib.auth.password_validation.UserAttributeSimilarityValidator"},
@@ -150,6 +161,9 @@ SPECTACULAR_SETTINGS = {
     "DESCRIPTION": "Model, value, register and sign off capital decisions under uncertainty.",
     "VERSION": "1",
     "SERVE_INCLUDE_SCHEMA": False,
+    # Two serializers offer the signing roles and the team roles; name both enums.
+    "ENUM_NAME_OVERRIDES": {"SigningRoleEnum": "decisions.models.teams.SIGNING_ROLES",
+                            "TeamRoleEnum": "decisions.models.teams.Role"},
 }
 
 SECURE_SSL = env_bool("SECURE_SSL", default=False)
@@ -163,8 +177,24 @@ if SECURE_SSL:
     SECURE_PROXY_SSL_HEADER = ("HTTP_X_FORWARDED_PROTO", "https")
 SECURE_CONTENT_TYPE_NOSNIFF = True
 SECURE_REFERRER_POLICY = "same-origin"
+SECURE_CROSS_ORIGIN_OPENER_POLICY = "same-origin"
+CSRF_COOKIE_HTTPONLY = True
 SESSION_COOKIE_HTTPONLY = True
 X_FRAME_OPTIONS = "DENY"
+
+# Shared state for the login throttle (decisions/throttle.py). The default is
+# per process; with several app servers set CACHE_URL=db://register_cache (then
+# run `manage.py createcachetable`) so that every server counts the same attempts.
+_CACHE_URL = os.environ.get("CACHE_URL", "locmem://").strip()
+if _CACHE_URL.startswith("db://") and _CACHE_URL[5:]:
+    CACHES = {"default": {"BACKEND": "django.core.cache.backends.db.DatabaseCache",
+                          "LOCATION": _CACHE_URL[5:]}}
+elif _CACHE_URL == "locmem://":
+    CACHES = {"default": {"BACKEND": "django.core.cache.backends.locmem.LocMemCache"}}
+else:
+    raise ImproperlyConfigured(f"CACHE_URL: must be locmem:// or db://TABLE, got {_CACHE_URL!r}")
+LOGIN_FAILURE_LIMIT = env_int("LOGIN_FAILURE_LIMIT", 5, minimum=1)
+LOGIN_LOCKOUT_SECONDS = env_int("LOGIN_LOCKOUT_SECONDS", 900, minimum=1)
 
 LOGGING = {
     "version": 1,

@@ -8,3 +8,6 @@ urlpatterns = [
     path("api/", include("decisions.api.urls")),
     path("", include("decisions.web.urls")),
 ]
+
+# A database failure outside a view (session or auth middleware) answers 503, not 500.
+handler500 = "decisions.middleware.server_error"

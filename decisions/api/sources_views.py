@@ -73,7 +73,7 @@ class SourceListView(GenericAPIView):
     permission_classes = (IsAuthenticated,)
     serializer_class = ss.StudySourceSerializer
 
-    @extend_schema(parameters=[OpenApiParameter("team", int)])
+    @extend_schema(operation_id="sources_list", parameters=[OpenApiParameter("team", int)])
     def get(self, request):
         qs = sources.visible_sources(request.user).annotate(record_count=Count("records"))
         team = request.query_params.get("team")

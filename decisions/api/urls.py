@@ -2,20 +2,11 @@
 
 from django.urls import path
 from drf_spectacular.views import SpectacularAPIView
-from rest_framework.authtoken.views import ObtainAuthToken
 from rest_framework.routers import SimpleRouter
-from rest_framework.throttling import ScopedRateThrottle
 
 from decisions.api import sources_views, views, views_extra
 from decisions.api.memo_views import VersionMemoView
-
-
-class TokenView(ObtainAuthToken):
-    """Exchange a username and password for an API token (rate-limited)."""
-
-    throttle_scope = "token"
-    throttle_classes = (ScopedRateThrottle,)
-
+from decisions.api.token import TokenView
 
 router = SimpleRouter()
 router.register("decisions", views.DecisionViewSet, basename="decision")

@@ -4,10 +4,11 @@ from django.contrib.auth import views as auth_views
 from django.urls import path
 
 from decisions.web import views, views_decision, views_edit
+from decisions.web.login import ThrottledLoginView
 
 urlpatterns = [
     path("", views.home, name="home"),
-    path("login/", auth_views.LoginView.as_view(redirect_authenticated_user=False), name="login"),
+    path("login/", ThrottledLoginView.as_view(redirect_authenticated_user=False), name="login"),
     path("logout/", auth_views.LogoutView.as_view(), name="logout"),
     path("decisions/new/", views_edit.decision_new, name="web-decision-new"),
     path("decisions/<int:pk>/", views_decision.detail, name="web-decision"),

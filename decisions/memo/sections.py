@@ -56,6 +56,16 @@ def _input_value(value, kind) -> str:
     return money(value, "")
 
 
+#: Plans in the break-even table are cut to this many characters (a large tree's plan
+#: runs to pages; the one-way sweep in the API or the command line has it in full).
+MAX_PLAN_CHARS = 160
+
+
+def _short(text: str, limit: int = MAX_PLAN_CHARS) -> str:
+    text = str(text or "")
+    return text if len(text) <= limit else text[:limit - 1].rstrip() + "…"
+
+
 def _cut_rows(rows: list, what: str) -> tuple[list, list]:
     if len(rows) <= MAX_TABLE_ROWS:
         return rows, []
@@ -315,8 +325,8 @@ def sensitivity_section(data: dict, width: float) -> list:
     for sweep in sweeps:
         for be in sweep.get("break_even") or []:
             be_rows.append([cell(sweep.get("label") or sweep.get("parameter")),
-                            _input_value(be["value"], sweep.get("kind")), cell(be.get("from", "")),
-                            cell(be.get("to", ""))])
+                            _input_value(be["value"], sweep.get("kind")),
+                            cell(_short(be.get("from", ""))), cell(_short(be.get("to", "")))])
     out.append(p("Break-even values", "h2"))
     if len(be_rows) > 1:
         be_rows, more = _cut_rows(be_rows, "break-even values")

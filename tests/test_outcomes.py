@@ -195,3 +195,40 @@ def test_review_without_an_outcome_is_not_found(people):
     with pytest.raises(NotFoundError) as err:
         outcomes.review(committed(people))
     assert str(err.value) == "outcome: none recorded for this decision yet"
+
+
+# An invented general tree, worked by hand: Drill costs 100 and then pays 500 (hot, 0.4)
+# or 50 (cold, 0.6), expected -100 + 200 + 30 = 130; Wait pays 150. The team drills anyway
+# (giving up 20 of expected value).
+SMALL_TREE = {
+    "kind": "tree", "title": "Drill or wait (invented test tree)", "currency": "EUR",
+    "objective": "max", "root": "plan",
+    "nodes": [
+        {"id": "plan", "kind": "decision", "name": "Plan",
+         "branches": [{"label": "Drill", "to": "res", "cash_flow": -100},
+                      {"label": "Wait", "to": "wait"}]},
+        {"id": "res", "kind": "chance", "name": "Reservoir",
+         "branches": [{"label": "hot", "probability": 0.4, "to": "hot"},
+                      {"label": "cold", "probability": 0.6, "to": "cold"}]},
+        {"id": "hot", "kind": "end", "payoff": 500},
+        {"id": "cold", "kind": "end", "payoff": 50},
+        {"id": "wait", "kind": "end", "payoff": 150},
+    ],
+}
+
+
+@pytest.mark.parametrize(("state", "probability", "regret"), [("hot", 0.4, 0.0),
+                                                              ("cold", 0.6, 200.0)])
+def test_review_of_a_general_tree_with_the_teams_own_plan(people, state, probability, regret):
+    decision = committed(people, SMALL_TREE, recommended=False, alternative="Drill",
+                         justification="invented: strategic reasons")
+    outcomes.record_outcome(decision.pk, actor=people.ana, if_match=IF_MATCH_ANY,
+                            path={"res": state}, realised_value=380)
+    r = outcomes.review(decision)
+    assert r["expected_at_approval"] == pytest.approx(130)
+    assert r["sound_given_what_was_known"]["value_given_up_at_approval"] == pytest.approx(20)
+    assert r["probability_of_what_happened"] == pytest.approx(probability)
+    # Hindsight: hot -> drilling makes 400 and is best; cold -> drilling makes -50, waiting 150.
+    assert r["hindsight"]["chosen_plan_value"] == pytest.approx(400 if state == "hot" else -50)
+    assert r["hindsight"]["regret"] == pytest.approx(regret)
+    assert [s["branch"] for s in r["path"]] == ["Drill", state]

@@ -38,6 +38,15 @@ def bundle(decision: Decision) -> dict:
     return {
         "format": "decision-register-export/1",
         "note": "Figures are model outputs resting on stated assumptions.",
+        "verification": {
+            "version": "content_sha256 = SHA-256 of the UTF-8 bytes of canonical_json",
+            "signoff": "bound_sha256 equals the content_sha256 of the version signed",
+            "event": ("hash = SHA-256 of the canonical JSON (keys sorted, no spaces, UTF-8) "
+                      "of {seq, created_at, actor_id, actor_username, action, object_type, "
+                      "object_id, payload_sha256, prev_hash}, where payload_sha256 = SHA-256 "
+                      "of payload_canonical; events of other objects sit between these, so "
+                      "prev_hash links are checked on the whole chain (verify_audit)"),
+        },
         "decision": {"id": decision.pk, "title": decision.title, "team": decision.team.name,
                      "owner": decision.owner.get_username(), "status": decision.status,
                      "policy": decision.policy.as_dict() if hasattr(decision, "policy") else {}},

@@ -117,3 +117,14 @@ def test_new_version_voids_the_signoffs_of_the_earlier_one(submitted, people, cl
     assert r.status_code == 200
     assert r.data["summary"]["probabilities"] == 2
     assert r.data["summary"]["payoffs"] == 1
+
+
+def test_results_are_those_computed_when_the_version_was_saved(draft, people, client_for,
+                                                               monkeypatch):
+    import valuation
+
+    saved = client_for(people.vic).get(f"/api/decisions/{draft.pk}/versions/1/").data["results"]
+    # A later change in the core must not alter what was signed.
+    monkeypatch.setattr(valuation, "evaluate", lambda doc, **kw: {"expected_value": -1.0})
+    again = client_for(people.vic).get(f"/api/decisions/{draft.pk}/versions/1/").data["results"]
+    assert again == saved and saved["expected_value"] == pytest.approx(3.0e6)

@@ -34,8 +34,7 @@ not drawn (the marker says so). The caption of each part states the rule.
 
 from __future__ import annotations
 
-from collections import deque
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any
 
 from reportlab.graphics.shapes import Circle, Drawing, Line, Polygon, PolyLine, Rect, String
@@ -55,6 +54,7 @@ from decisions.drawings.style import (
     pdf_safe,
     text_width,
 )
+from decisions.drawings.tree_split import Branch, Node, Plan, build, in_order, shown_children, split
 
 __all__ = ["TreePart", "tree_parts", "tree_drawings", "tree_legend",
            "ROW_HEIGHT", "FONT_SIZE"]
@@ -76,30 +76,6 @@ ASCENT, DESCENT = 0.72 * FONT_SIZE, 0.21 * FONT_SIZE
 
 
 @dataclass
-class _Node:
-    id: str
-    kind: str                 # decision | chance | end | ref (a node reached twice)
-    name: str
-    payoff: float | None = None
-    value: float | None = None
-    best: str | None = None
-    pruned: frozenset = frozenset()
-    children: list = field(default_factory=list)   # [(_Branch, _Node)]
-    on_plan: bool = True
-    size: int = 1             # nodes in the subtree (itself included)
-    height: int = 0           # levels below the node (0 for an end node)
-
-
-@dataclass
-class _Branch:
-    label: str
-    probability: float | None
-    cash_flow: float | None
-    best: bool
-    pruned: bool
-
-
-@dataclass
 class TreePart:
     """One page-sized piece of the tree.
 
@@ -114,171 +90,6 @@ class TreePart:
     boxes: list
     caption: str
     from_part: int | None = None
-
-
-# ---- reading the documents ------------------------------------------------------------------
-
-def _build(tree_doc: dict, details: dict) -> tuple[_Node, int]:
-    by_id = {n["id"]: n for n in tree_doc.get("nodes", [])}
-    made: dict[str, _Node] = {}
-
-    def make(node_id: str) -> _Node:
-        raw = by_id[node_id]
-        d = details.get(node_id) or {}
-        node = _Node(
-            id=node_id, kind=raw.get("kind", "end"),
-            name=str(raw.get("name") or d.get("name") or node_id),
-            payoff=raw.get("payoff"), value=d.get("value"), best=d.get("best_branch"),
-            pruned=frozenset(d.get("pruned") or ()),
-        )
-        made[node_id] = node
-        return node
-
-    root = make(tree_doc["root"])
-    stack = [root]
-    while stack:  # iterative: trees may be hundreds of levels deep
-        node = stack.pop()
-        for br in by_id[node.id].get("branches", []) if node.kind != "ref" else []:
-            label = str(br.get("label", ""))
-            branch = _Branch(label=label, probability=br.get("probability"),
-                             cash_flow=br.get("cash_flow"),
-                             best=node.kind == "decision" and node.best == label,
-                             pruned=label in node.pruned)
-            child_id = br["to"]
-            if child_id in made:  # reached twice: draw a reference, not the subtree again
-                child = _Node(id=child_id, kind="ref", name=made[child_id].name)
-            else:
-                child = make(child_id)
-                stack.append(child)
-            node.children.append((branch, child))
-    # plan membership and subtree sizes, parents before children
-    order = [root]
-    for node in order:
-        for branch, child in node.children:
-            child.on_plan = node.on_plan and not branch.pruned
-            order.append(child)
-    for node in reversed(order):
-        node.size = 1 + sum(c.size for _, c in node.children)
-        node.height = 1 + max((c.height for _, c in node.children), default=-1)
-    return root, len(order)
-
-
-# ---- splitting into parts -----------------------------------------------------------------
-
-@dataclass
-class _Plan:
-    """What one part draws. Cut and collapsed nodes are keyed by object identity: a
-    reference to a node reached twice carries the same id as the node itself."""
-
-    root: _Node
-    incoming: _Branch | None
-    from_part: int | None
-    first: int = 0             # children of the root shown: [first, last)
-    last: int = 0
-    cut: dict = field(default_factory=dict)        # id(node) -> part number (0: not drawn)
-    collapsed: set = field(default_factory=set)    # id(node) drawn as a pruned stub
-    more_part: int | None = None                   # part continuing the root's children
-    number: int = 0
-
-
-def _kids(node: _Node, plan: _Plan) -> list:
-    if id(node) in plan.cut or id(node) in plan.collapsed:
-        return []
-    if node is plan.root:
-        return node.children[plan.first:plan.last]
-    return node.children
-
-
-def _in_order(plan: _Plan) -> list:
-    """Visible nodes below the part's root in drawing order, with their incoming branch."""
-    out = []
-    stack = [(c, b) for b, c in reversed(_kids(plan.root, plan))]
-    while stack:
-        node, branch = stack.pop()
-        out.append((node, branch))
-        stack.extend((c, b) for b, c in reversed(_kids(node, plan)))
-    return out
-
-
-def _row_counts(plan: _Plan) -> dict[int, int]:
-    """Rows each visible node's subtree takes in the part (one per drawn leaf)."""
-    ordered = _in_order(plan)
-    rows: dict[int, int] = {}
-    for node, _ in reversed(ordered):
-        kids = _kids(node, plan)
-        rows[id(node)] = sum(rows[id(c)] for _, c in kids) if kids else 1
-    kids = _kids(plan.root, plan)
-    rows[id(plan.root)] = sum(rows[id(c)] for _, c in kids) if kids else 1
-    return rows
-
-
-def _split(root: _Node, max_rows: int, max_depth: int, collapse: bool,
-           max_parts: int) -> list[_Plan]:
-    plans: list[_Plan] = []
-    queue: deque[_Plan] = deque([_Plan(root=root, incoming=None, from_part=None, number=1)])
-    next_number = 2
-    while queue:
-        plan = queue.popleft()
-        plans.append(plan)
-        r = plan.root
-        # The root's children: as many as leave a row for the "more branches" marker.
-        plan.last = len(r.children)
-        if plan.last - plan.first > max_rows:
-            plan.last = plan.first + max_rows - 1
-        # Collapse pruned subtrees (big trees only). A subtree too deep for the rest of
-        # this part is cut off where it would fit a part of its own (so later parts
-        # are full and few, rather than many stubs at the depth limit); a subtree too
-        # deep even for that goes on down, and is cut at the limit at the latest.
-        depth_of = {id(r): 0}
-        walk = [r]
-        inner: list[_Node] = []
-        while walk:
-            node = walk.pop()
-            for branch, child in _kids(node, plan):
-                depth_of[id(child)] = depth_of[id(node)] + 1
-                if not child.children:
-                    continue
-                if collapse and branch.pruned:
-                    plan.collapsed.add(id(child))
-                elif depth_of[id(child)] + child.height > max_depth and (
-                        child.height <= max_depth or depth_of[id(child)] >= max_depth):
-                    plan.cut[id(child)] = -1
-                else:
-                    inner.append(child)
-                    walk.append(child)
-        # Cut subtrees until the rows fit: the biggest one that fits a page on its
-        # own (fewest parts), else the biggest of all.
-        while True:
-            rows = _row_counts(plan)
-            if rows[id(r)] <= max_rows:
-                break
-            sizes = [(n, rows[id(n)]) for n in inner
-                     if id(n) in rows and id(n) not in plan.cut and rows[id(n)] > 1]
-            if not sizes:
-                break
-            fitting = [(n, k) for n, k in sizes if k <= max_rows]
-            node, _ = max(fitting or sizes, key=lambda item: item[1])
-            plan.cut[id(node)] = -1
-        # Number the parts opened here in reading order (depth-first, top to bottom).
-        for node, branch in _in_order(plan):
-            if plan.cut.get(id(node)) != -1:
-                continue
-            if next_number > max_parts:
-                plan.cut[id(node)] = 0
-                continue
-            plan.cut[id(node)] = next_number
-            queue.append(_Plan(root=node, incoming=branch, from_part=plan.number,
-                               number=next_number))
-            next_number += 1
-        if plan.last < len(r.children):
-            if next_number > max_parts:
-                plan.more_part = 0
-            else:
-                plan.more_part = next_number
-                queue.append(_Plan(root=r, incoming=plan.incoming, from_part=plan.number,
-                                   first=plan.last, number=next_number))
-                next_number += 1
-    return plans
 
 
 # ---- drawing one part -----------------------------------------------------------------------
@@ -312,7 +123,7 @@ class _Canvas:
         return self.drawing
 
 
-def _branch_style(branch: _Branch | None, child: _Node) -> tuple[Any, float, int]:
+def _branch_style(branch: Branch | None, child: Node) -> tuple[Any, float, int]:
     if not child.on_plan:
         return PRUNED, 0.8, 0
     if branch is not None and branch.best:
@@ -320,7 +131,7 @@ def _branch_style(branch: _Branch | None, child: _Node) -> tuple[Any, float, int
     return INK, 0.9, 1
 
 
-def _symbol(cv: _Canvas, node: _Node, x: float, y: float) -> None:
+def _symbol(cv: _Canvas, node: Node, x: float, y: float) -> None:
     stroke = INK if node.on_plan else PRUNED
     if node.kind == "decision":
         shape = Rect(x - R, y - R, 2 * R, 2 * R, strokeColor=stroke, strokeWidth=1,
@@ -337,7 +148,7 @@ def _symbol(cv: _Canvas, node: _Node, x: float, y: float) -> None:
     cv.boxes.append((x - R, y - R, x + R, y + R, f"node {node.id}"))
 
 
-def _value_text(node: _Node) -> str:
+def _value_text(node: Node) -> str:
     return "" if node.value is None else f"value {amount(node.value)}"
 
 
@@ -347,7 +158,7 @@ def _ref(part: int, pages: dict[int, int] | None) -> str:
     return f"part {part}" + (f", p. {page}" if page else "")
 
 
-def _right_text(node: _Node, plan: _Plan, value_word: str,
+def _right_text(node: Node, plan: Plan, value_word: str,
                 pages: dict[int, int] | None = None) -> tuple[str, Any, str]:
     """What a node without drawn children writes to its right: text, colour, font."""
     if id(node) in plan.cut:
@@ -368,14 +179,14 @@ def _right_text(node: _Node, plan: _Plan, value_word: str,
     return "", INK, FONT
 
 
-def _draw_part(plan: _Plan, plans_total: int, width: float, rule: str,
+def _draw_part(plan: Plan, plans_total: int, width: float, rule: str,
                value_word: str, pages: dict[int, int] | None) -> TreePart:
     r = plan.root
-    ordered = _in_order(plan)
+    ordered = in_order(plan)
     depth = {id(r): 0}
-    parent_of: dict[int, _Node] = {}
+    parent_of: dict[int, Node] = {}
     for node, _ in [(r, None), *ordered]:
-        for _, child in _kids(node, plan):
+        for _, child in shown_children(node, plan):
             depth[id(child)] = depth[id(node)] + 1
             parent_of[id(child)] = node
     # Column 0 holds the root's stub: its name (or incoming branch) and value.
@@ -385,7 +196,7 @@ def _draw_part(plan: _Plan, plans_total: int, width: float, rule: str,
     need = max(text_width(_right_text(n, plan, value_word, pages)[0], FONT_SIZE, FONT_BOLD)
                for n in deepest) + R + 6
     col = min(MAX_COLUMN, (width - LEFT - min(END_TEXT, need)) / columns)
-    leaves = [n for n, _ in ordered if not _kids(n, plan)] or [r]
+    leaves = [n for n, _ in ordered if not shown_children(n, plan)] or [r]
     n_rows = len(leaves) + (1 if plan.more_part is not None else 0)
     # A continued part writes "from part N" one line above its root's stub.
     top_pad = TOP_PAD + (LINE if plan.from_part else 0)
@@ -398,14 +209,14 @@ def _draw_part(plan: _Plan, plans_total: int, width: float, rule: str,
 
     ys: dict[int, float] = {id(leaf): row_y(i) for i, leaf in enumerate(leaves)}
     for node, _ in [*reversed(ordered), (r, None)]:
-        kids = _kids(node, plan)
+        kids = shown_children(node, plan)
         if kids:
             ys[id(node)] = (ys[id(kids[0][1])] + ys[id(kids[-1][1])]) / 2
 
-    def x_of(node: _Node) -> float:
+    def x_of(node: Node) -> float:
         return LEFT + (depth[id(node)] + 1) * col
 
-    def texts_on_branch(xa: float, node: _Node, branch: _Branch | None, *, title: str = "",
+    def texts_on_branch(xa: float, node: Node, branch: Branch | None, *, title: str = "",
                         note: str = ""):
         """Label above the branch, figures and value below; ``note`` above the label
         (only the root's stub has one, and column 0 holds nothing else)."""
@@ -437,7 +248,7 @@ def _draw_part(plan: _Plan, plans_total: int, width: float, rule: str,
                                     strokeColor=WARM, strokeWidth=0.9))
             cv.boxes.append((xa + 3, y - 3, xa + 9, y + 3, f"prune mark {node.id}"))
 
-    def right_text(node: _Node, text: str, color=INK, font=FONT):
+    def right_text(node: Node, text: str, color=INK, font=FONT):
         x, y = x_of(node), ys[id(node)]
         start = x + R + 3
         cv.text(start, y - ASCENT / 2 + 0.5, fit_text(text, width - 2 - start, FONT_SIZE, font),
@@ -460,7 +271,7 @@ def _draw_part(plan: _Plan, plans_total: int, width: float, rule: str,
             cv.line(layer, PolyLine([xp + R, yp, xa, yp, xa, y, x - R, y], strokeColor=color,
                                     strokeWidth=w))
             texts_on_branch(xa, node, branch)
-        if _kids(node, plan):
+        if shown_children(node, plan):
             continue
         text, colour, font = _right_text(node, plan, value_word, pages)
         right_text(node, text, color=colour, font=font)
@@ -509,11 +320,11 @@ def tree_parts(tree_doc: dict, details: dict | None = None, *, width: float = 48
         layout with the pages lands every part on the same page as the first.
     """
     details = details or {}
-    root, n_nodes = _build(tree_doc, details)
+    root, n_nodes = build(tree_doc, details)
     collapse = n_nodes > collapse_over
     max_rows = max(2, int((height - 2 * TOP_PAD - LINE) // ROW_HEIGHT))  # LINE: "from part"
     max_depth = max(1, int((width - LEFT - END_TEXT) // MIN_COLUMN) - 1)  # column 0: the stub
-    plans = _split(root, max_rows, max_depth, collapse, max_parts)
+    plans = split(root, max_rows, max_depth, collapse, max_parts)
     rule = ("Bold teal: the recommended branch at each decision; grey with a double stroke: "
             "pruned branches. Amounts are in whole units")
     currency = tree_doc.get("currency")

@@ -631,11 +631,24 @@ def _segment_best(x: np.ndarray, g: _Group) -> tuple[np.ndarray, np.ndarray, np.
     top = np.empty(m)
     for bk in g.buckets:
         cols = x.reshape(-1, bk.width) if bk.cells is None else x[bk.cells]
-        t = cols.max(axis=1)
-        tol = TIE_TOLERANCE * np.maximum(1.0, np.abs(t))
-        near = cols >= (t - tol)[:, None]
-        local = near.argmax(axis=1)
-        tie = np.count_nonzero(near, axis=1) > 1
+        if bk.width <= 8:
+            # Column by column: numpy reduces a short inner axis one row at a time.
+            t = cols[:, 0].copy()
+            for j in range(1, bk.width):
+                np.maximum(t, cols[:, j], out=t)
+            threshold = t - TIE_TOLERANCE * np.maximum(1.0, np.abs(t))
+            local = np.zeros(len(t), dtype=np.int64)
+            n_near = np.zeros(len(t), dtype=np.int8)
+            for j in range(bk.width - 1, -1, -1):
+                near = cols[:, j] >= threshold
+                np.copyto(local, j, where=near)
+                n_near += near
+            tie = n_near > 1
+        else:
+            t = cols.max(axis=1)
+            near = cols >= (t - TIE_TOLERANCE * np.maximum(1.0, np.abs(t)))[:, None]
+            local = near.argmax(axis=1)
+            tie = np.count_nonzero(near, axis=1) > 1
         if bk.segments is None:
             return g.starts + local, tie, t
         choice[bk.segments] = g.starts[bk.segments] + local

@@ -3,7 +3,14 @@
 from django.contrib.auth import views as auth_views
 from django.urls import path
 
-from decisions.web import views, views_decision, views_edit
+from decisions.web import (
+    views,
+    views_decision,
+    views_edit,
+    views_outcomes,
+    views_portfolio,
+    views_sources,
+)
 from decisions.web.login import ThrottledLoginView
 
 urlpatterns = [
@@ -22,4 +29,12 @@ urlpatterns = [
     path("decisions/<int:pk>/strategy/", views_decision.strategy, name="web-strategy"),
     path("decisions/<int:pk>/commit/", views_decision.commit, name="web-commit"),
     path("decisions/<int:pk>/close/", views_decision.close, name="web-close"),
+    path("decisions/<int:pk>/apply-source/", views_sources.apply_source, name="web-apply-source"),
+    path("decisions/<int:pk>/outcome/", views_outcomes.outcome, name="web-outcome"),
+    path("decisions/<int:pk>/review/", views_outcomes.review, name="web-review"),
+    path("sources/", views_sources.source_list, name="web-sources"),
+    path("sources/<int:pk>/", views_sources.source_detail, name="web-source"),
+    path("sources/<int:pk>/records/", views_sources.source_record, name="web-source-record"),
+    path("sources/<int:pk>/import/", views_sources.source_import, name="web-source-import"),
+    path("portfolio/", views_portfolio.portfolio, name="web-portfolio"),
 ]

@@ -23,6 +23,7 @@ from decisions.services.errors import DomainError
 from decisions.web import queries
 from decisions.web.figures import figures
 from decisions.web.forms import CloseForm, PolicyForm, SignForm, StrategyForm
+from decisions.web.panels import decision_panels
 from decisions.web.presenters import diff_rows, money, results_view, tree_rows
 from valuation.diff import diff_documents
 
@@ -34,10 +35,13 @@ def _show_problems(request, exc: DomainError) -> None:
         messages.error(request, f"{location}: {message}" if location else message)
 
 
-def _memo_url(decision) -> str | None:
-    """The memo download, once the memo route has landed (none yet: no link)."""
+def _memo_url(decision, version) -> str | None:
+    """The memo of the version shown (the API's ``version-memo`` route; none: no link)."""
+    if version is None:
+        return None
     try:
-        return reverse("decision-memo", kwargs={"pk": decision.pk})
+        return reverse("version-memo", kwargs={"decision_pk": decision.pk,
+                                               "number": version.number})
     except NoReverseMatch:
         return None
 
@@ -52,7 +56,7 @@ def _version_choice(request, decision, current):
     return current
 
 
-def detail(request, pk, *, sign_form=None, strategy_form=None, status=200):
+def detail(request, pk, *, sign_form=None, strategy_form=None, source_form=None, status=200):
     if not request.user.is_authenticated:
         return redirect(f"{reverse('login')}?next={request.path}")
     decision = queries.decision_for(request.user, pk)
@@ -97,7 +101,7 @@ def detail(request, pk, *, sign_form=None, strategy_form=None, status=200):
         "policy_form": PolicyForm(initial={"etag": decision.etag, **{
             "policy_" + r.replace(" ", "_"): n for r, n in progress_requirements(decision).items()}}),
         "events": list(queries.audit_events(decision)),
-        "memo_url": _memo_url(decision),
+        "memo_url": _memo_url(decision, version),
         "can_edit": role in (Role.ANALYST, *SIGNING_ROLES)
         and decision.status in (Status.DRAFT, Status.SUBMITTED),
         "can_submit": is_analyst and decision.status == Status.DRAFT and current is not None
@@ -107,6 +111,8 @@ def detail(request, pk, *, sign_form=None, strategy_form=None, status=200):
         "diff_a": versions[1].number if len(versions) > 1 else None,
         "diff_b": versions[0].number if versions else None,
     }
+    context.update(decision_panels(request.user, decision, role, version,
+                                   source_form=source_form))
     return render(request, "web/decision.html", context, status=status)
 
 

@@ -24,13 +24,17 @@ import sys
 
 from django.db import InterfaceError, OperationalError
 from django.http import HttpResponse, JsonResponse
+from django.views import defaults
 
 __all__ = [
     "CONTENT_SECURITY_POLICY",
     "RETRY_AFTER_SECONDS",
     "DatabaseUnavailableMiddleware",
     "SecurityHeadersMiddleware",
+    "bad_request",
     "database_unavailable",
+    "page_not_found",
+    "permission_denied",
     "server_error",
 ]
 
@@ -134,3 +138,32 @@ def server_error(request, *args, **kwargs):
                              "code": "server_error"}, status=500)
     return HttpResponse(f"<!doctype html><title>Server error</title><h1>Server error</h1>"
                         f"<p>{message}.</p>", status=500, content_type="text/html; charset=utf-8")
+
+
+def _api_error(status: int, code: str, message: str) -> JsonResponse:
+    return JsonResponse({"errors": [{"location": "", "message": message}], "code": code},
+                        status=status)
+
+
+# Requests that never reach a DRF view (a path no route matches, a body Django
+# itself refuses) still get the API's JSON error shape under /api/.
+
+def page_not_found(request, exception=None):
+    """``handler404``."""
+    if _wants_json(request):
+        return _api_error(404, "not_found", "not found")
+    return defaults.page_not_found(request, exception)
+
+
+def bad_request(request, exception=None):
+    """``handler400`` (e.g. an oversized form body, a host not in ALLOWED_HOSTS)."""
+    if _wants_json(request):
+        return _api_error(400, "bad_request", "the request was refused as malformed")
+    return defaults.bad_request(request, exception)
+
+
+def permission_denied(request, exception=None):
+    """``handler403``."""
+    if _wants_json(request):
+        return _api_error(403, "permission_denied", "you do not have permission to do this")
+    return defaults.permission_denied(request, exception)

@@ -149,6 +149,9 @@ REST_FRAMEWORK = {
     # JSON only, through our strict parser (size, depth, NaN, duplicate keys, U+0000).
     "DEFAULT_PARSER_CLASSES": ["decisions.api.parsers.StrictJSONParser"],
     "EXCEPTION_HANDLER": "decisions.api.exceptions.api_exception_handler",
+    # No OPTIONS self-description (the OpenAPI schema is the description): 405,
+    # instead of DRF's metadata probe, which fails on views without a serializer.
+    "DEFAULT_METADATA_CLASS": None,
     # Fairness limits, not a security boundary (enforce hard limits at the proxy).
     "DEFAULT_THROTTLE_RATES": {
         "token": os.environ.get("API_TOKEN_RATE", "20/min"),

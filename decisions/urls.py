@@ -11,3 +11,7 @@ urlpatterns = [
 
 # A database failure outside a view (session or auth middleware) answers 503, not 500.
 handler500 = "decisions.middleware.server_error"
+# Under /api/ every error is JSON, even for paths no route matches.
+handler400 = "decisions.middleware.bad_request"
+handler403 = "decisions.middleware.permission_denied"
+handler404 = "decisions.middleware.page_not_found"

@@ -68,7 +68,15 @@ class Problems:
         if not is_number(value):
             self.add(location, f"must be a number, got {describe(value)}")
             return False
-        if not math.isfinite(value):
+        try:
+            finite = math.isfinite(value)
+        except OverflowError:
+            # JSON allows integers of any length; one beyond the float range
+            # (about 1.8e308) cannot be compared, let alone computed with.
+            self.add(location, f"must be a finite number within the range of a double "
+                               f"(about ±1.8e308), got an integer of {len(str(abs(value)))} digits")
+            return False
+        if not finite:
             self.add(location, f"must be a finite number, got {value}")
             return False
         return True

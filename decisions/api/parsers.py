@@ -15,6 +15,7 @@
 from __future__ import annotations
 
 import json
+import math
 import re
 
 from django.conf import settings
@@ -38,6 +39,14 @@ class BodyProblem(ParseError):
 
 def _reject_constant(name: str):
     raise BodyProblem(f"{name} is not a valid JSON number; send a finite number")
+
+
+def _finite_float(text: str) -> float:
+    value = float(text)
+    if math.isinf(value):  # 1e400 overflows to infinity without the word Infinity
+        raise BodyProblem(f"the number {text[:40]} is beyond the range of a double "
+                          f"(about ±1.8e308); send a finite number")
+    return value
 
 
 def _no_duplicates(pairs):
@@ -82,7 +91,8 @@ def parse_strict_json(raw: bytes):
         raise BodyProblem(f"must be UTF-8 text (byte {exc.start} is not)") from None
     _check_depth(text)
     try:
-        data = json.loads(text, object_pairs_hook=_no_duplicates, parse_constant=_reject_constant)
+        data = json.loads(text, object_pairs_hook=_no_duplicates, parse_constant=_reject_constant,
+                          parse_float=_finite_float)
     except BodyProblem:
         raise
     except (ValueError, RecursionError) as exc:

@@ -274,3 +274,19 @@ def test_portfolio_needs_a_team_id_unless_the_user_has_exactly_one_team(people, 
                                                                 "to no team)"}]
     r = client_for(people.ana).get("/api/portfolio/?bins=500")
     assert r.status_code == 400 and r.data["errors"][0]["location"] == "bins"
+
+
+def test_the_record_exports_as_csv_that_reimports_and_runs_no_formula(people, client_for):
+    source = tellurion_source(people)
+    client_for(people.ana).post(f"/api/sources/{source.pk}/records/",
+                                {"date": "2026-10-01", "signal": "favourable",
+                                 "state": "cold reservoir", "note": "=HYPERLINK(\"x\")"},
+                                format="json")
+    r = client_for(people.vic).get(f"/api/sources/{source.pk}/records.csv")
+    assert r.status_code == 200 and r["Content-Type"].startswith("text/csv")
+    lines = r.content.decode("utf-8").splitlines()
+    assert lines[0] == "date,signal,state,origin,decision,note"
+    assert lines[1] == "2019-02-27,unfavourable,cold reservoir,import,,imported from tellurion_records.csv"
+    assert lines[-1] == "2026-10-01,favourable,cold reservoir,manual,,\"'=HYPERLINK(\"\"x\"\")\""
+    assert len(lines) == 32
+    assert client_for(people.omar).get(f"/api/sources/{source.pk}/records.csv").status_code == 404

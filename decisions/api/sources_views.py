@@ -8,7 +8,11 @@ source) need ``If-Match`` with the decision's ETag, like the rest of the API.
 
 from __future__ import annotations
 
+import csv
+import io
+
 from django.db.models import Count
+from django.http import HttpResponse
 from django.urls import path
 from drf_spectacular.types import OpenApiTypes
 from drf_spectacular.utils import OpenApiParameter, extend_schema
@@ -23,7 +27,7 @@ from decisions.services import outcomes, portfolio, sources
 from decisions.services.access import visible_decisions
 from decisions.services.decisions import get_version
 from decisions.services.errors import InvalidInput, NotFoundError
-from valuation.records_csv import MAX_BYTES
+from valuation.records_csv import MAX_BYTES, neutralise_csv_cell
 
 IF_MATCH = OpenApiParameter("If-Match", OpenApiTypes.STR, OpenApiParameter.HEADER, required=True,
                             description="the decision's ETag as last read")
@@ -127,6 +131,27 @@ class SourceRecordsView(GenericAPIView):
         data = _valid(ss.StudyRecordCreateSerializer, request)
         record = sources.add_record(actor=request.user, source=source, **data)
         return Response(ss.StudyRecordSerializer(record).data, status=status.HTTP_201_CREATED)
+
+
+class SourceRecordsExportView(GenericAPIView):
+    """The track record as a CSV file in the import layout (cells made safe for spreadsheets)."""
+
+    permission_classes = (IsAuthenticated,)
+
+    @extend_schema(responses={(200, "text/csv"): OpenApiTypes.STR})
+    def get(self, request, pk):
+        source = sources.get_source(request.user, pk)
+        out = io.StringIO()
+        writer = csv.writer(out, lineterminator="\r\n")
+        writer.writerow(["date", "signal", "state", "origin", "decision", "note"])
+        for row in source.records.order_by("date", "id").values_list(
+                "date", "signal", "state", "origin", "decision_id", "note"):
+            # A note or a name starting with = + - @ would run as a formula (OWASP).
+            writer.writerow([neutralise_csv_cell(v if not hasattr(v, "isoformat") else
+                                                 v.isoformat()) for v in row])
+        response = HttpResponse(out.getvalue(), content_type="text/csv; charset=utf-8")
+        response["Content-Disposition"] = f'attachment; filename="source-{source.pk}-records.csv"'
+        return response
 
 
 class SourceImportView(GenericAPIView):
@@ -251,6 +276,8 @@ urlpatterns = [
     path("sources/<int:pk>/", SourceDetailView.as_view(), name="source-detail"),
     path("sources/<int:pk>/records/", SourceRecordsView.as_view(), name="source-records"),
     path("sources/<int:pk>/import/", SourceImportView.as_view(), name="source-import"),
+    path("sources/<int:pk>/records.csv", SourceRecordsExportView.as_view(),
+         name="source-records-csv"),
     path("decisions/<int:decision_pk>/outcome/", OutcomeView.as_view(), name="decision-outcome"),
     path("decisions/<int:decision_pk>/review/", ReviewView.as_view(), name="decision-review"),
     path("decisions/<int:decision_pk>/apply-source/", ApplySourceView.as_view(),

@@ -261,6 +261,7 @@ def record_outcome(decision_id, *, actor, if_match: str | None, path: Any,
                 expected_value=_chosen_expected_value(version, strategy),
                 path_probability=probability, walk=steps)
             nodes = {n["id"]: n for n in tree["nodes"]}
+            # Inside the outcome's transaction and covered by its audit event (the path).
             OutcomeForecast.objects.bulk_create([
                 OutcomeForecast(outcome=outcome, node=s["node"], branch=b["label"],
                                 probability=float(b["probability"]),

@@ -268,6 +268,8 @@ def import_records(*, actor, source: StudySource, file, dry_run: bool = False,
             raise ConflictError(
                 f"this file (SHA-256 {digest[:12]}…) was already imported into this source on "
                 f"{earlier.created_at:%Y-%m-%d}; nothing imported", location="file")
+        # One bulk insert in the same transaction as the import's one audit event, which
+        # carries the count and the file's SHA-256 (the records can be re-derived from it).
         StudyRecord.objects.bulk_create(
             [StudyRecord(source=source, date=r.date, signal=r.signal, state=r.state,
                          origin=RecordOrigin.IMPORT, import_sha256=digest, created_by=actor,

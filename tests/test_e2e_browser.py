@@ -4,7 +4,8 @@ One scenario, told in steps: the analyst creates a decision and builds its model
 (seeing the core's message beside a bad field while typing), sees the results
 and submits; operations rejects with a reason; the analyst saves a corrected
 version and resubmits; financial review and operations approve; the analyst
-records the recommended plan and commits; a user of another team sees nothing.
+records the recommended plan and commits, later records the outcome and reads the
+review and the portfolio; a user of another team sees nothing.
 Screenshots of each main page go to test-artifacts/screenshots/ (gitignored).
 
 Skips with the reason when Chromium or the playwright package is missing
@@ -195,12 +196,30 @@ def test_decision_from_model_to_commit_in_the_browser(live_server, browser, sett
     expect(ana.page.locator("#audit")).to_contain_text("decision.commit")
     ana.shot("07-decision-committed")
 
+    # Later: the analyst records what happened and opens the review. By hand: expected
+    # 3,120,000 at approval; the reservoir was cold (P = 0.6); with hindsight gas
+    # (2,500,000) beat the well (-800,000): regret 3,300,000.
+    ana.page.get_by_role("link", name="Record the outcome").click()
+    ana.page.get_by_label("State [a0]").select_option("cold")
+    ana.page.get_by_label("Realised value").fill("-900,000")
+    ana.page.get_by_label("Note").fill("Cold reservoir; the well was reused as a ground loop "
+                                       "(invented).")
+    ana.page.get_by_role("button", name="Record the outcome").click()
+    expect(ana.page.get_by_role("heading", name="Review: expected vs realised")).to_be_visible()
+    hindsight = ana.page.locator("section", has=ana.page.get_by_role("heading", name="With hindsight"))
+    expect(hindsight).to_contain_text("3,300,000 EUR")
+    expect(ana.page.locator("main")).to_contain_text("0.600")
+    ana.shot("08-review")
+    ana.page.get_by_role("link", name="Portfolio").click()
+    expect(ana.page.locator("main")).to_contain_text("3,120,000 EUR")
+    ana.shot("09-portfolio")
+
     # A user of another team sees none of it.
     omar = Session(browser, base, "omar")
     expect(omar.page.locator("main")).not_to_contain_text(decision.title)
     response = omar.page.goto(f"{base}/decisions/{decision.pk}/")
     assert response.status == 404
-    omar.shot("08-outsider-404")
+    omar.shot("10-outsider-404")
 
     decision.refresh_from_db()
     assert decision.status == Status.COMMITTED

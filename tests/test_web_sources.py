@@ -195,7 +195,8 @@ def test_source_page_shows_claim_calibration_chart_and_trend(people):
     assert "<svg" in page.split('id="accuracy-h"')[1].split('id="trend-h"')[0]
     # 30 records, windows of 10 records ending at each record: 21 windows.
     trend = page.split('id="trend-h"')[1].split('id="records-h"')[0]
-    assert trend.count("<tr>") == 1 + 21
+    assert trend.count('<td class="date">') == 2 * 21
+    assert "hot reservoir: says favourable" in trend
     assert "30 records" in page
 
 

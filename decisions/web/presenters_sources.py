@@ -71,8 +71,9 @@ def score_rows(scores: dict) -> list[dict]:
     ]
 
 
-def trend_rows(trend: dict, states: list[str]) -> tuple[list[dict], int]:
-    """The newest ``TREND_ROWS`` windows, oldest first, and how many were left out."""
+def trend_rows(trend: dict, states: list[str]) -> tuple[list[dict], int, list[dict]]:
+    """The newest ``TREND_ROWS`` windows (oldest first), how many were left out, and one
+    column head per state: the signal the claim makes most likely for it."""
     windows = trend.get("windows") or []
     shown = windows[-TREND_ROWS:]
     rows = []
@@ -87,7 +88,9 @@ def trend_rows(trend: dict, states: list[str]) -> tuple[list[dict], int]:
                      "hit_rate": pct(w["hit_rate"]),
                      "brier": f"{w['brier']:.3f}" if w.get("brier") is not None else "—",
                      "states": cells})
-    return rows, len(windows) - len(shown)
+    heads = [{"state": state, "signal": shown[0]["states"][state]["most_likely_signal"]}
+             for state in states] if shown else []
+    return rows, len(windows) - len(shown), heads
 
 
 def comparison_view(comparison: dict) -> dict | None:

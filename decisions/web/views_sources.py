@@ -126,8 +126,8 @@ def _detail(request, source, *, record_form=None, upload_form=None, import_probl
                                                  for loc, msg in exc.problems)
     else:
         rows, chart = accuracy_rows(figures["calibration"])
-        trend, left_out = trend_rows(figures["trend"], source.states)
-        context.update({"accuracy": rows, "accuracy_svg": chart,
+        trend, left_out, heads = trend_rows(figures["trend"], source.states)
+        context.update({"accuracy": rows, "accuracy_svg": chart, "trend_heads": heads,
                         "scores": score_rows(figures["scores"]),
                         "prior_source": figures["scores"]["claimed"].get("prior_source", ""),
                         "trend": trend, "trend_left_out": left_out,

@@ -131,3 +131,15 @@ def test_token_authentication_works(people, client_for):
                            format="json").data["token"]
     anonymous.credentials(HTTP_AUTHORIZATION=f"Token {token}")
     assert anonymous.get("/api/decisions/").status_code == 200
+
+
+
+def test_a_refusal_names_roles_by_their_names_not_their_enum_members(monkeypatch):
+    from decisions.models import Role
+    from decisions.services import access
+    from decisions.services.errors import ForbiddenError
+
+    monkeypatch.setattr(access, "role_of", lambda user, team_id: Role.VIEWER)
+    with pytest.raises(ForbiddenError) as info:
+        access.require_role(object(), 1, (Role.ANALYST,), "submit")
+    assert str(info.value) == "submit: needs the role 'analyst' in this team; you are 'viewer'"

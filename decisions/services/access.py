@@ -45,10 +45,11 @@ def require_role(user, team_id: int, roles: Iterable[str], action: str) -> str:
     role = role_of(user, team_id)
     if role is None:
         raise NotFoundError("not found")
-    allowed = list(roles)
-    if role not in allowed:
+    # str() first: repr() of a TextChoices member shows "Role.ANALYST", not the role's name.
+    allowed = [str(r) for r in roles]
+    if str(role) not in allowed:
         raise ForbiddenError(
             f"{action}: needs the role {' or '.join(repr(r) for r in allowed)} in this team; "
-            f"you are {role!r}"
+            f"you are {str(role)!r}"
         )
     return role

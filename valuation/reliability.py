@@ -58,7 +58,6 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy import stats
 
 from valuation.errors import ModelValidationError, Problem
 
@@ -433,6 +432,10 @@ def _posterior_arrays(
     matrix: np.ndarray, counts: np.ndarray, strength: float, mass: float
 ) -> dict[str, np.ndarray]:
     """Posterior figures for counts of shape (..., states, signals), all at once."""
+    # Imported here: scipy.stats costs about a second to import, and every
+    # `python -m valuation` command would pay it otherwise.
+    from scipy import stats
+
     prior, floored = _prior_parameters(matrix, strength)
     post = prior + counts
     a0 = post.sum(axis=-1, keepdims=True)

@@ -23,7 +23,6 @@ import math
 from typing import Any
 
 import numpy as np
-from scipy.optimize import brentq
 
 from valuation.batch import BatchValues, evaluate_batch, first_choice_label, plan_label, plan_value
 from valuation.errors import ParameterError
@@ -210,6 +209,8 @@ def _refine(model, spec: Parameter, x_switch: float, left: float, right: float, 
     elif g_hi == 0.0:
         x = hi
     elif g_lo * g_hi < 0:
+        from scipy.optimize import brentq  # imported on use: scipy is slow to import
+
         x = float(brentq(gap, lo, hi, xtol=max(floor, 1e-300), rtol=4 * np.finfo(float).eps))
     else:  # no sign change (the two plans never cross exactly): keep the switch point
         x = float(x_switch)

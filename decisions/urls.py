@@ -3,7 +3,10 @@
 from django.contrib import admin
 from django.urls import include, path
 
+from decisions.health import healthz
+
 urlpatterns = [
+    path("healthz", healthz, name="healthz"),
     path("admin/", admin.site.urls),
     path("api/", include("decisions.api.urls")),
     path("", include("decisions.web.urls")),

@@ -170,3 +170,13 @@ def test_a_backend_terminated_inside_a_request_gives_503_and_no_half_state(peopl
         assert r.status_code == 201 and r.json()["number"] == 2
     finally:
         purge_register()
+
+
+@pytest.mark.django_db
+def test_the_health_check_answers_without_login_and_503_without_a_database(client):
+    r = client.get("/healthz")
+    assert r.status_code == 200 and json.loads(r.content) == {"status": "ok"}
+    with mock.patch("decisions.health.connection") as conn:
+        conn.cursor.side_effect = OperationalError("could not connect to server")
+        r = client.get("/healthz")
+    assert r.status_code == 503 and r["Retry-After"] == str(RETRY_AFTER_SECONDS)

@@ -204,22 +204,23 @@ def test_decision_from_model_to_commit_in_the_browser(live_server, browser, sett
     ana.page.get_by_label("Realised value").fill("-900,000")
     ana.page.get_by_label("Note").fill("Cold reservoir; the well was reused as a ground loop "
                                        "(invented).")
+    ana.shot("08-outcome-form")
     ana.page.get_by_role("button", name="Record the outcome").click()
     expect(ana.page.get_by_role("heading", name="Review: expected vs realised")).to_be_visible()
     hindsight = ana.page.locator("section", has=ana.page.get_by_role("heading", name="With hindsight"))
     expect(hindsight).to_contain_text("3,300,000 EUR")
     expect(ana.page.locator("main")).to_contain_text("0.600")
-    ana.shot("08-review")
+    ana.shot("09-review")
     ana.page.get_by_role("link", name="Portfolio").click()
     expect(ana.page.locator("main")).to_contain_text("3,120,000 EUR")
-    ana.shot("09-portfolio")
+    ana.shot("10-portfolio")
 
     # A user of another team sees none of it.
     omar = Session(browser, base, "omar")
     expect(omar.page.locator("main")).not_to_contain_text(decision.title)
     response = omar.page.goto(f"{base}/decisions/{decision.pk}/")
     assert response.status == 404
-    omar.shot("10-outsider-404")
+    omar.shot("11-outsider-404")
 
     decision.refresh_from_db()
     assert decision.status == Status.COMMITTED

@@ -244,3 +244,14 @@ def test_decision_page_memo_link_downloads_a_pdf_for_a_member(decision, people):
     assert response["Content-Type"] == "application/pdf"
     assert response.content.startswith(b"%PDF-")
     assert client_as(people.omar).get(memo).status_code == 404
+
+
+def test_the_form_follows_the_alternative_the_team_chose(people):
+    # The team takes "Stay on gas" instead of the recommended survey plan: the plan's
+    # path is then the gas alternative's state node (a1), not the survey's nodes.
+    decision = committed(people, alternative="Stay on gas",
+                         justification="Keeps capital free (invented).", recommended=False)
+    page = html(client_as(people.ana).get(_urls(decision)["outcome"]))
+    on_plan = page.split("On the recorded plan")[1].split("Other chance nodes")[0]
+    assert "[a1]" in on_plan and "[study0/signal]" not in on_plan
+    assert "alternative “Stay on gas”" in page

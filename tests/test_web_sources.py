@@ -305,6 +305,16 @@ def test_an_oversized_upload_is_refused_before_it_is_read(source, people):
     assert StudyRecord.objects.count() == 0
 
 
+def test_a_body_far_above_the_limit_is_refused_from_its_declared_length(source, people):
+    big = b"date,signal,state\n" + b"2021-03-01,good,hot\n" * (WEB_IMPORT_MAX_BYTES // 10)
+    response = client_as(people.ana).post(reverse("web-source-import", args=[source.pk]),
+                                          {"step": "preview", "file": upload(big)})
+    assert response.status_code == 400
+    problems = re.search(r'<ul class="import-problems">(.*?)</ul>', html(response), re.S).group(1)
+    assert f"file: larger than {WEB_IMPORT_MAX_BYTES:,} bytes" in problems
+    assert StudyRecord.objects.count() == 0 and PENDING not in client_as(people.ana).session
+
+
 def test_the_demo_csv_previews_thirty_rows(source, people):
     source = tellurion_source(people, with_records=False)
     response = client_as(people.ana).post(
@@ -370,4 +380,6 @@ def test_viewer_and_outsider_cannot_apply_a_source(source, people, who, code):
         reverse("web-apply-source", args=[decision.pk]),
         {"etag": decision.etag, "study": "Survey", "source": source.pk, "mode": "claimed"})
     assert response.status_code == code
+    if who == "vic":
+        assert "needs the role" in html(response)
     assert decision.versions.count() == 1

@@ -37,7 +37,8 @@ def chance_nodes(version, strategy) -> list[dict]:
     """Chance nodes of the version's tree, those on the recorded plan first.
 
     At a decision node the plan follows the chosen strategy's alternative when
-    it names one of the branches, else the branch the valuation found best.
+    it names one of the branches (or the branch leading straight to it), else
+    the branch the valuation found best.
     """
     tree = expand(json.loads(version.canonical_json))
     nodes = {n["id"]: n for n in tree["nodes"]}
@@ -55,8 +56,15 @@ def chance_nodes(version, strategy) -> list[dict]:
         branches = node.get("branches") or []
         if node["kind"] == "decision":
             labels = [b["label"] for b in branches]
-            want = alternative if alternative in labels else best.get(nid)
-            branches = [b for b in branches if b["label"] == want] or branches
+            if alternative in labels:
+                picked = [b for b in branches if b["label"] == alternative]
+            elif alternative:
+                # e.g. "buy a study first?": the branch that reaches the alternative
+                # without an uncertainty on the way (no study) is the team's plan.
+                picked = [b for b in branches if _offers(nodes, b["to"], alternative)][:1]
+            else:
+                picked = []
+            branches = picked or [b for b in branches if b["label"] == best.get(nid)] or branches
         elif node["kind"] == "chance":
             on_plan.append(nid)
         stack.extend(b["to"] for b in reversed(branches))
@@ -71,6 +79,21 @@ def chance_nodes(version, strategy) -> list[dict]:
                     "branches": [(b["label"], f"{b['label']} (p = {prob(b['probability'])})")
                                  for b in node["branches"]]})
     return out
+
+
+def _offers(nodes: dict, nid: str, alternative: str) -> bool:
+    """Whether decisions alone (no chance node) lead from ``nid`` to a choice of ``alternative``."""
+    stack, seen = [nid], set()
+    while stack:
+        current = stack.pop()
+        node = nodes[current]
+        if current in seen or node["kind"] != "decision":
+            continue
+        seen.add(current)
+        if any(b["label"] == alternative for b in node["branches"]):
+            return True
+        stack.extend(b["to"] for b in node["branches"])
+    return False
 
 
 def _signals(version) -> list[str]:
@@ -149,6 +172,7 @@ def outcome(request, pk):
         "plan": (version.results.get("policy") or {}).get("text", ""),
         "expected": money(version.results.get("expected_value"), cur),
         "strategy": strategy, "has_others": any(not n["on_plan"] for n in nodes),
+        "has_studies": bool(_signals(version)),
     }, status=status)
 
 

@@ -20,6 +20,7 @@ from django.db.models import Count
 from django.http import Http404
 from django.shortcuts import redirect, render
 from django.urls import reverse
+from django.views.decorators.csrf import csrf_exempt, csrf_protect
 from django.views.decorators.http import require_POST
 
 from decisions.models import Role
@@ -29,6 +30,7 @@ from decisions.services.errors import DomainError, ForbiddenError, NotFoundError
 from decisions.web import queries, views_decision
 from decisions.web.forms import add_problems
 from decisions.web.forms_sources import (
+    WEB_IMPORT_MAX_BYTES,
     ClaimGrid,
     RecordForm,
     SourceCreateForm,
@@ -46,6 +48,8 @@ __all__ = ["apply_source", "source_detail", "source_import", "source_list", "sou
 PENDING = "pending-import"  # session key of the upload waiting for its confirm step
 PREVIEW_ROWS = 200
 RECORD_ROWS = 100
+#: Room for the multipart envelope and the other fields around a file at the limit.
+MULTIPART_OVERHEAD = 64 * 1024
 
 
 def _source(request, pk):
@@ -167,9 +171,30 @@ def _problem_lines(exc: DomainError) -> list[str]:
 
 
 @login_required
+@csrf_exempt  # checked by csrf_protect below, once the body is known to be small enough
 @require_POST
 def source_import(request, pk):
-    """Step 1 (``step=preview``, a file): dry run and preview. Step 2 (``step=confirm``): import."""
+    """Step 1 (``step=preview``, a file): dry run and preview. Step 2 (``step=confirm``): import.
+
+    The CSRF check reads the multipart body, which streams a large file to a
+    temporary file; so a body far above the limit is refused from its declared
+    length first, before anything reads it (Django's documented pattern for
+    changing upload handling: ``csrf_exempt`` outside, ``csrf_protect`` inside).
+    """
+    try:
+        length = int(request.META.get("CONTENT_LENGTH") or 0)
+    except ValueError:
+        length = 0
+    if length > WEB_IMPORT_MAX_BYTES + MULTIPART_OVERHEAD:
+        source = _source(request, pk)
+        return _detail(request, source, status=400, import_problems=[
+            f"file: larger than {WEB_IMPORT_MAX_BYTES:,} bytes ({length:,} bytes sent); import "
+            "a larger file through the API or the import_records command"])
+    return _import(request, pk)
+
+
+@csrf_protect
+def _import(request, pk):
     source = _source(request, pk)
     if role_of(request.user, source.team_id) != Role.ANALYST:
         exc = ForbiddenError("import: needs the role 'analyst' of the source's team",
@@ -249,6 +274,9 @@ def apply_source(request, pk):
                                             mode=data["mode"], if_match=data["etag"])
     except DomainError as exc:
         add_problems(form, exc.problems)
+        if exc.status == 403:  # the page shows no source form to this user: say it above
+            for error in form.non_field_errors():
+                messages.error(request, error)
         return views_decision.detail(request, pk, source_form=form, status=exc.status)
     messages.success(request, f"Saved as version {version.number}: study “{data['study']}” takes "
                               f"the {data['mode']} accuracy of its source.")

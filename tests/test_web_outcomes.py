@@ -133,6 +133,7 @@ def test_the_form_lists_the_plans_chance_nodes_first(decision, people):
     assert "[study0/g1/a1]" in on_plan
     assert "[a0]" not in on_plan  # the well without the survey: off the plan
     assert "good (p = 0.480)" in page  # P(good) = 12/25 (by hand)
+    assert CAUTION in page and "<details>" in page  # nothing off the plan chosen: closed
 
 
 @pytest.mark.parametrize(("override", "field", "message"), [
@@ -254,4 +255,12 @@ def test_the_form_follows_the_alternative_the_team_chose(people):
     page = html(client_as(people.ana).get(_urls(decision)["outcome"]))
     on_plan = page.split("On the recorded plan")[1].split("Other chance nodes")[0]
     assert "[a1]" in on_plan and "[study0/signal]" not in on_plan
+    data = {"etag": etag(decision), node_field(page, "a1"): "cold",
+            node_field(page, "study0/signal"): "good", "realised_value": "2,400,000"}
+    response = client_as(people.ana).post(_urls(decision)["outcome"], data)
+    # A path with records under two branches of the first decision is refused; the
+    # off-plan group opens so the answer typed there stays in view.
+    assert response.status_code == 400
+    assert "<details open>" in html(response)
+    assert "records chance nodes under more than one branch" in html(response)
     assert "alternative “Stay on gas”" in page

@@ -383,3 +383,40 @@ def test_viewer_and_outsider_cannot_apply_a_source(source, people, who, code):
     if who == "vic":
         assert "needs the role" in html(response)
     assert decision.versions.count() == 1
+
+
+# ---- anonymous posts, CSRF on the decision page's form, the caution and the nav ---------------
+
+@pytest.mark.parametrize("route", ["web-source-record", "web-source-import"])
+def test_anonymous_posts_are_sent_to_sign_in(source, route):
+    response = client_as().post(reverse(route, args=[source.pk]), {"step": "preview"})
+    assert response.status_code == 302 and response["Location"].startswith("/login/?next=")
+    assert StudyRecord.objects.count() == 0
+
+
+def test_anonymous_apply_source_is_sent_to_sign_in(source, people):
+    decision = draft_with(people, survey_table())
+    response = client_as().post(reverse("web-apply-source", args=[decision.pk]),
+                                {"etag": decision.etag, "study": "Survey", "source": source.pk})
+    assert response.status_code == 302 and response["Location"].startswith("/login/?next=")
+    assert decision.versions.count() == 1
+
+
+def test_apply_source_needs_the_csrf_token(source, people):
+    decision = draft_with(people, survey_table())
+    client = client_as(people.ana, enforce_csrf_checks=True)
+    response = client.post(reverse("web-apply-source", args=[decision.pk]), {
+        "etag": decision.etag, "study": "Survey", "source": source.pk, "mode": "claimed"})
+    assert response.status_code == 403
+    assert decision.versions.count() == 1
+
+
+def test_new_pages_carry_the_caution_and_the_nav_links(source, people):
+    client = client_as(people.ana)
+    pages = [html(client.get(reverse("web-sources"))),
+             html(client.post(reverse("web-source-import", args=[source.pk]),
+                              {"step": "preview", "file": upload()}))]
+    for page in pages:
+        assert CAUTION in page
+        assert f'href="{reverse("web-sources")}">Sources</a>' in page
+        assert f'href="{reverse("web-portfolio")}">Portfolio</a>' in page

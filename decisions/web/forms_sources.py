@@ -190,3 +190,7 @@ class OutcomeForm(forms.Form):
 
     def off_plan(self):
         return [self[name] for name, node in self.node_fields if not node["on_plan"]]
+
+    def off_plan_touched(self) -> bool:
+        """Whether an off-plan select holds a value or an error (its group then opens)."""
+        return any(field.errors or field.value() for field in self.off_plan())

@@ -9,6 +9,7 @@ contrast ratio of at least 4.5:1 on white (WCAG 2.1, success criterion 1.4.3).
 from __future__ import annotations
 
 import unicodedata
+from functools import lru_cache
 
 from reportlab.lib.colors import HexColor
 from reportlab.pdfbase.pdfmetrics import stringWidth
@@ -56,8 +57,15 @@ def pdf_safe(text) -> str:
     point in brackets (``张`` -> ``[U+5F20]``), so a name is never lost to a
     blank box and the substitution is visible.
     """
+    text = str(text)
+    try:  # the common case, one encode instead of one per character
+        text.encode("cp1252")
+    except UnicodeEncodeError:
+        pass
+    else:
+        return text
     out = []
-    for ch in str(text):
+    for ch in text:
         if _encodable(ch):
             out.append(ch)
             continue
@@ -73,10 +81,15 @@ def pdf_safe(text) -> str:
     return "".join(out)
 
 
+# A tree drawing measures the same short texts ("p 0.5", labels, values) thousands of
+# times, once to fit them and once more to box them: the widths are pure functions of
+# their arguments, so they are remembered (bounded, a few hundred KiB at most).
+@lru_cache(maxsize=8192)
 def text_width(text: str, size: float, font: str = FONT) -> float:
     return stringWidth(text, font, size)
 
 
+@lru_cache(maxsize=4096)
 def fit_text(text: str, width: float, size: float, font: str = FONT) -> str:
     """``text`` shortened with an ellipsis so that it fits ``width`` points."""
     text = pdf_safe(text)

@@ -180,7 +180,7 @@ def _right_text(node: Node, plan: Plan, value_word: str,
 
 
 def _draw_part(plan: Plan, plans_total: int, width: float, rule: str,
-               value_word: str, pages: dict[int, int] | None) -> TreePart:
+               value_word: str, pages: dict[int, int] | None, layout_only: bool = False) -> TreePart:
     r = plan.root
     ordered = in_order(plan)
     depth = {id(r): 0}
@@ -202,6 +202,11 @@ def _draw_part(plan: Plan, plans_total: int, width: float, rule: str,
     top_pad = TOP_PAD + (LINE if plan.from_part else 0)
     height = top_pad + TOP_PAD + n_rows * ROW_HEIGHT
     cv = _Canvas(width, height)
+    if layout_only:
+        # The memo's trial layout reads only each part's size and caption: the shapes and
+        # their text measurements would be built and thrown away (half the tree's cost).
+        return TreePart(number=plan.number, root=r.id, drawing=cv.drawing, boxes=[],
+                        caption=_caption(plan, plans_total, rule), from_part=plan.from_part)
 
     def row_y(i: int) -> float:
         # the band [y - ROW_BOTTOM, y + ROW_TOP] centred in the row
@@ -285,20 +290,25 @@ def _draw_part(plan: Plan, plans_total: int, width: float, rule: str,
         cv.text(start, y - ASCENT / 2, fit_text(text, width - 2 - start, FONT_SIZE, FONT_BOLD),
                 font=FONT_BOLD, color=ACCENT if plan.more_part else WARM, what="more branches")
     drawing = cv.finish()
+    return TreePart(number=plan.number, root=r.id, drawing=drawing, boxes=cv.boxes,
+                    caption=_caption(plan, plans_total, rule), from_part=plan.from_part)
+
+
+def _caption(plan: Plan, plans_total: int, rule: str) -> str:
+    r = plan.root
     where = f"from '{pdf_safe(r.name)}'"
     if plan.first or plan.last < len(r.children):
         where += f", branches {plan.first + 1}–{plan.last}"
     caption = f"Part {plan.number} of {plans_total}: the tree {where}"
     if plan.from_part:
         caption += f", continued from part {plan.from_part}"
-    caption += f". {rule}"
-    return TreePart(number=plan.number, root=r.id, drawing=drawing, boxes=cv.boxes,
-                    caption=caption, from_part=plan.from_part)
+    return caption + f". {rule}"
 
 
 def tree_parts(tree_doc: dict, details: dict | None = None, *, width: float = 480.0,
                height: float = 640.0, collapse_over: int = 600,
-               max_parts: int = 60, pages: dict[int, int] | None = None) -> list[TreePart]:
+               max_parts: int = 60, pages: dict[int, int] | None = None,
+               layout_only: bool = False) -> list[TreePart]:
     """Lay out and draw a general tree document as parts that each fit ``width`` x ``height``.
 
     Parameters
@@ -318,6 +328,9 @@ def tree_parts(tree_doc: dict, details: dict | None = None, *, width: float = 48
         ``{part number: page}`` once the caller knows where each part lands; the
         markers then name the page too. Sizes do not depend on it, so a second
         layout with the pages lands every part on the same page as the first.
+    layout_only : bool
+        Give each part its size, caption and number but an empty drawing (no shapes,
+        no boxes): for a trial layout that only needs to know where the parts land.
     """
     details = details or {}
     root, n_nodes = build(tree_doc, details)
@@ -337,7 +350,7 @@ def tree_parts(tree_doc: dict, details: dict | None = None, *, width: float = 48
                  f"a pruned branch is drawn as one stub.")
     # End nodes show their payoff and, when discounting changes it, the value it adds.
     value_word = "PV" if tree_doc.get("discount_rate") else "value"
-    return [_draw_part(p, len(plans), width, rule, value_word, pages) for p in plans]
+    return [_draw_part(p, len(plans), width, rule, value_word, pages, layout_only) for p in plans]
 
 
 def tree_drawings(tree_doc: dict, details: dict | None = None, **kwargs) -> list[Drawing]:

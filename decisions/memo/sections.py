@@ -196,7 +196,8 @@ def tree_section(data: dict, width: float, height: float, *,
     if not details:
         out.append(p("Node values are not in the stored results (the tree is larger than the "
                      "per-node detail limit); the tree is drawn without them.", "small"))
-    parts = tree_parts(tree_doc, details, width=width, height=height - 70, pages=pages)
+    parts = tree_parts(tree_doc, details, width=width, height=height - 70, pages=pages,
+                       layout_only=not draw)
     out.append(to_pdf_flowable(tree_legend(width), draw=draw))
     for part in parts:
         drawing = to_pdf_flowable(part.drawing, draw=draw)

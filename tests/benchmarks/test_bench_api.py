@@ -1,0 +1,132 @@
+"""Issue 9, target 6: ``POST /api/evaluate/`` with a 199-node tree, p95 under 50 ms with 16
+concurrent clients on gunicorn with 2 sync workers (loopback).
+
+Server start-up reuses the load script's helpers (tests/benchmarks/load/load_test.py:
+production-like environment with DEBUG off and the fairness throttles lifted, the
+request helper, the wait-and-warm-up). The database is a throwaway SQLite file in the
+test's temporary folder (migrated, one invented user and token made with ``manage.py
+shell``). The clients are 16 threads in this process using ``http.client`` on
+127.0.0.1 only, closed loop (each sends its next request when the last is answered),
+bounded in time and count; the first seconds are a warm-up, excluded. Everything shares
+the machine's 2 cores: the server, the clients and whatever else runs.
+"""
+
+import os
+import socket
+import subprocess
+import threading
+import time
+from collections import Counter
+
+import pytest
+
+from tests.benchmarks.bench_inputs import alternating_tree
+from tests.benchmarks.conftest import PYTHON, ROOT, check_target, write_section
+from tests.benchmarks.load import load_test as lt
+
+pytestmark = pytest.mark.benchmark
+COMMAND = "python -m pytest tests/benchmarks/test_bench_api.py -m benchmark -s"
+CLIENTS, WORKERS, WARM_UP, SECONDS, MAX_REQUESTS = 16, 2, 5.0, 30.0, 50_000
+
+MAKE_TOKEN = """
+from django.contrib.auth import get_user_model
+from rest_framework.authtoken.models import Token
+user = get_user_model().objects.create_user("bench-analyst", password="bench password 9")
+print(Token.objects.create(user=user).key)
+"""
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def _closed_loop(token: str, tree: dict, seconds: float) -> tuple[list[float], Counter, float]:
+    latencies, statuses, lock = [], Counter(), threading.Lock()
+    stop = time.perf_counter() + seconds
+
+    def client():
+        while time.perf_counter() < stop:
+            with lock:
+                if len(latencies) >= MAX_REQUESTS:
+                    return
+            t0 = time.perf_counter()
+            try:
+                status = lt._request("POST", "/api/evaluate/", token, {"document": tree})[0]
+            except OSError as exc:
+                status = type(exc).__name__
+            with lock:
+                latencies.append(time.perf_counter() - t0)
+                statuses[status] += 1
+
+    t0 = time.perf_counter()
+    threads = [threading.Thread(target=client, daemon=True) for _ in range(CLIENTS)]
+    for th in threads:
+        th.start()
+    for th in threads:
+        th.join(timeout=seconds + 60)
+    return latencies, statuses, time.perf_counter() - t0
+
+
+def test_evaluate_endpoint_p95_with_16_clients(tmp_path, monkeypatch):
+    # The load script's helpers talk to its module-level HOST/PORT: point them at a free port
+    # (its own 8765 may be taken by someone's development server).
+    monkeypatch.setattr(lt, "PORT", _free_port())
+    env = lt._environment(f"sqlite:///{tmp_path / 'api.sqlite3'}", tmp_path)
+    manage = [PYTHON, str(ROOT / "manage.py")]
+    subprocess.run([*manage, "migrate", "--verbosity", "0"], cwd=ROOT, env=env, check=True)
+    token = subprocess.run([*manage, "shell", "-c", MAKE_TOKEN], cwd=ROOT, env=env, check=True,
+                           capture_output=True, text=True).stdout.strip().splitlines()[-1]
+    tree = alternating_tree(199, seed=7)
+    tree["title"] = "API benchmark tree (invented)"
+    log = open(tmp_path / "gunicorn.log", "w")  # noqa: SIM115 - closed in finally
+    proc = subprocess.Popen(
+        [PYTHON, "-m", "gunicorn", "decisions.wsgi", "--bind", f"{lt.HOST}:{lt.PORT}",
+         "--workers", str(WORKERS), "--timeout", "60", "--graceful-timeout", "5"],
+        cwd=ROOT, env=env, stdout=log, stderr=subprocess.STDOUT)
+    try:
+        lt._wait_until_up(proc)
+        status, _, body = lt._request("POST", "/api/evaluate/", token, {"document": tree})
+        assert status == 200, body[:300]
+        # one client alone: the service time, without queueing
+        single = []
+        for _ in range(40):
+            t0 = time.perf_counter()
+            lt._request("POST", "/api/evaluate/", token, {"document": tree})
+            single.append(time.perf_counter() - t0)
+        _closed_loop(token, tree, WARM_UP)  # warm-up with every client, excluded
+        latencies, statuses, elapsed = _closed_loop(token, tree, SECONDS)
+    finally:
+        proc.terminate()
+        try:
+            proc.wait(timeout=15)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+        log.close()
+    p = lt._percentiles(latencies)
+    one = lt._percentiles(single)
+    rate = len(latencies) / elapsed
+    met = check_target(p["p95"] < 50, f"p95 {p['p95']:.0f} ms >= 50 ms")
+    ok = statuses.get(200, 0)
+    lines = [
+        f"gunicorn {WORKERS} sync workers, DEBUG off, throttles lifted, throwaway SQLite file; "
+        f"{CLIENTS} client threads (http.client, 127.0.0.1, a new connection per request), "
+        f"closed loop for {SECONDS:.0f} s after a {WARM_UP:.0f} s warm-up; tree of 199 nodes "
+        f"({len(str(tree)) / 1024:.0f} KiB of JSON). Server, clients and other work share 2 cores "
+        f"(load average {os.getloadavg()[0]:.1f}).",
+        "",
+        "| clients | requests | achieved rate | p50 | p95 | p99 | max | answers |",
+        "|---:|---:|---:|---:|---:|---:|---:|---|",
+        f"| 1 (sequential) | {one['n']} | — | {one['p50']:.1f} ms | {one['p95']:.1f} ms | "
+        f"{one['p99']:.1f} ms | {one['max']:.1f} ms | 200 |",
+        f"| {CLIENTS} | {p['n']:,} | {rate:.1f} req/s | {p['p50']:.1f} ms | **{p['p95']:.1f} ms** | "
+        f"{p['p99']:.1f} ms | {p['max']:.1f} ms | {dict(statuses)} |",
+        "",
+        f"- p95 with {CLIENTS} clients: **{p['p95']:.0f} ms** — target 50 ms: {met}. "
+        f"{ok:,} of {p['n']:,} answers were 200.",
+        f"- With {WORKERS} sync workers, {CLIENTS} clients queue about {CLIENTS / WORKERS:.0f} deep: the "
+        f"latency is roughly {CLIENTS / WORKERS:.0f} x the service time (one client alone: p50 "
+        f"{one['p50']:.1f} ms), and the rate is bounded by 2 cores / the CPU per request.",
+    ]
+    write_section("POST /api/evaluate/, 16 clients (target 6)", COMMAND, "\n".join(lines))

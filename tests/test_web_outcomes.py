@@ -264,3 +264,15 @@ def test_the_form_follows_the_alternative_the_team_chose(people):
     assert "<details open>" in html(response)
     assert "records chance nodes under more than one branch" in html(response)
     assert "alternative “Stay on gas”" in page
+
+
+def test_a_tree_with_more_chance_nodes_than_the_page_lists_says_so(decision, people, monkeypatch):
+    from decisions.web import views_outcomes
+
+    # The expanded survey table has 7 chance nodes: the state under each alternative without
+    # the survey (2), the survey's signal (1), the state under each alternative after each
+    # signal (4). The page lists two: 5 are left out.
+    monkeypatch.setattr(views_outcomes, "MAX_NODES", 2)
+    page = html(client_as(people.ana).get(_urls(decision)["outcome"]))
+    assert page.count('<select name="node-') == 2
+    assert "The tree has 5 more chance nodes than this page lists" in page

@@ -33,8 +33,9 @@ _AFTER_COMMIT = (Status.COMMITTED, Status.CLOSED)
 MAX_NODES = 300  # selects on one page; a larger tree is recorded through the API
 
 
-def chance_nodes(version, strategy) -> list[dict]:
-    """Chance nodes of the version's tree, those on the recorded plan first.
+def chance_nodes(version, strategy) -> tuple[list[dict], int]:
+    """Chance nodes of the version's tree, those on the recorded plan first (at most
+    ``MAX_NODES``), and how many the tree has in all.
 
     At a decision node the plan follows the chosen strategy's alternative when
     it names one of the branches (or the branch leading straight to it), else
@@ -71,6 +72,7 @@ def chance_nodes(version, strategy) -> list[dict]:
     planned = set(on_plan)
     others = [n["id"] for n in tree["nodes"] if n["kind"] == "chance" and n["id"] not in planned]
     out = []
+    total = len(on_plan) + len(others)
     for nid in (on_plan + others)[:MAX_NODES]:
         node = nodes[nid]
         name = node.get("name") or nid
@@ -78,7 +80,7 @@ def chance_nodes(version, strategy) -> list[dict]:
                     "label": f"{name} [{nid}]" if name != nid else nid,
                     "branches": [(b["label"], f"{b['label']} (p = {prob(b['probability'])})")
                                  for b in node["branches"]]})
-    return out
+    return out, total
 
 
 def _offers(nodes: dict, nid: str, alternative: str) -> bool:
@@ -144,7 +146,7 @@ def outcome(request, pk):
         return redirect(reverse("web-decision", args=[decision.pk]))
     version = decision.current_version()
     strategy = version.strategies.order_by("-chosen_at", "-id").first()
-    nodes = chance_nodes(version, strategy)
+    nodes, total = chance_nodes(version, strategy)
     previous = svc.current_outcome(decision)
     form = OutcomeForm(request.POST or None, nodes=nodes, signals=_signals(version),
                        initial=_initial(decision, previous, nodes))
@@ -173,6 +175,7 @@ def outcome(request, pk):
         "expected": money(version.results.get("expected_value"), cur),
         "strategy": strategy, "has_others": any(not n["on_plan"] for n in nodes),
         "has_studies": bool(_signals(version)),
+        "left_out": total - len(nodes), "api_url": reverse("decision-outcome", args=[decision.pk]),
     }, status=status)
 
 

@@ -53,7 +53,7 @@ def fuzz_tokens(people, draft, settings):
         request_finished.connect(close_old_connections)
 
 
-@pytest.mark.slow  # about 130 s for 6 examples x 39 operations x 3 callers on 2 cores
+@pytest.mark.slow  # 45-130 s for 6 examples x 40 operations x 3 callers on 2 cores
 @pytest.mark.django_db
 @schema.parametrize()
 @settings(max_examples=EXAMPLES, deadline=None, derandomize=True, database=None,

@@ -109,8 +109,14 @@ class DecisionSerializer(serializers.ModelSerializer):
                   "created_at", "updated_at", "current_version", "policy", "strategy")
         read_only_fields = fields
 
+    def _current(self, obj):
+        # Looked up once per decision: the three fields below all need it.
+        if not hasattr(obj, "_current_version_cache"):
+            obj._current_version_cache = obj.current_version()
+        return obj._current_version_cache
+
     def get_current_version(self, obj) -> dict | None:
-        version = obj.current_version()
+        version = self._current(obj)
         if version is None:
             return None
         data = VersionSummarySerializer(version).data
@@ -118,12 +124,14 @@ class DecisionSerializer(serializers.ModelSerializer):
         return data
 
     def get_policy(self, obj) -> dict:
-        return policy_progress(obj, obj.current_version())
+        return policy_progress(obj, self._current(obj))
 
     def get_strategy(self, obj) -> dict | None:
-        version = obj.current_version()
-        strategy = version.strategies.order_by("-chosen_at", "-id").first() if version else None
-        return StrategySerializer(strategy).data if strategy else None
+        version = self._current(obj)
+        if version is None:
+            return None
+        strategies = sorted(version.strategies.all(), key=lambda st: (st.chosen_at, st.id))
+        return StrategySerializer(strategies[-1]).data if strategies else None
 
 
 class AuditEventSerializer(serializers.ModelSerializer):

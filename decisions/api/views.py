@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 
+from django.db.models import Prefetch
 from drf_spectacular.types import OpenApiTypes
 from drf_spectacular.utils import OpenApiParameter, extend_schema
 from rest_framework import mixins, status, viewsets
@@ -19,7 +20,7 @@ from rest_framework.response import Response
 
 from decisions.api import serializers as s
 from decisions.api.permissions import TeamRolePermission
-from decisions.models import AuditEvent, ChosenStrategy, Decision
+from decisions.models import AuditEvent, ChosenStrategy, Decision, ModelVersion, SignOff
 from decisions.services import decisions as svc
 from decisions.services import signoff as signing
 from decisions.services.access import visible_decisions
@@ -59,6 +60,20 @@ class DecisionViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets
         qs = visible_decisions(self.request.user).select_related("team", "owner")
         if self.action != "list":
             return qs
+        # A page of decisions in a fixed number of queries: versions newest first
+        # without their results (the list does not show them; the model text stays,
+        # since each sign-off re-hashes it), with their sign-offs and strategies and
+        # the people on them, and each policy's requirements.
+        versions = (ModelVersion.objects.defer("results").select_related("author")
+                    .prefetch_related(
+                        Prefetch("signoffs", queryset=SignOff.objects.select_related("signer")),
+                        Prefetch("strategies",
+                                 queryset=ChosenStrategy.objects.select_related("chosen_by")))
+                    .order_by("-number"))
+        qs = qs.select_related("policy").prefetch_related(
+            Prefetch("versions", queryset=versions, to_attr="versions_newest_first"),
+            "policy__requirements",
+        )
         filters = s.DecisionFilterSerializer(data=self.request.query_params)
         filters.is_valid(raise_exception=True)
         f = filters.validated_data

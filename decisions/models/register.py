@@ -62,6 +62,11 @@ class Decision(models.Model):
         return f'"decision-{self.pk}-{self.lock_version}"'
 
     def current_version(self):
+        # A list query may have prefetched the versions newest first (see
+        # decisions.api.views); use them rather than one more query per decision.
+        prefetched = getattr(self, "versions_newest_first", None)
+        if prefetched is not None:
+            return prefetched[0] if prefetched else None
         return self.versions.order_by("-number").first()
 
 
@@ -104,7 +109,8 @@ class SignOffPolicy(models.Model):
         return f"Policy of {self.decision}: {parts or 'no roles'}"
 
     def as_dict(self) -> dict[str, int]:
-        return {r.role: r.count for r in self.requirements.order_by("role")}
+        # Sorted in Python so a prefetched ``requirements`` set is used as it is.
+        return {r.role: r.count for r in sorted(self.requirements.all(), key=lambda r: r.role)}
 
 
 class PolicyRequirement(models.Model):

@@ -34,7 +34,9 @@ def printed_name(user) -> str:
 def policy_progress(decision: Decision, version: ModelVersion | None) -> dict:
     """Per required role: how many approvals it needs and who has given them."""
     requirements = decision.policy.as_dict() if hasattr(decision, "policy") else {}
-    approvals = list(version.signoffs.filter(meaning=Meaning.APPROVE)) if version else []
+    # Filtered in Python so a prefetched ``signoffs`` set is used as it is.
+    approvals = ([so for so in version.signoffs.all() if so.meaning == Meaning.APPROVE]
+                 if version else [])
     roles = {}
     for role, count in requirements.items():
         names = [s.signer_printed_name for s in approvals if s.role == role]

@@ -143,3 +143,11 @@ def test_a_refusal_names_roles_by_their_names_not_their_enum_members(monkeypatch
     with pytest.raises(ForbiddenError) as info:
         access.require_role(object(), 1, (Role.ANALYST,), "submit")
     assert str(info.value) == "submit: needs the role 'analyst' in this team; you are 'viewer'"
+
+
+@pytest.mark.parametrize("who", ["ana", "fred", "vic", "omar"])
+def test_only_staff_may_walk_the_whole_audit_chain(draft, people, client_for, who):
+    # The chain and its problem reports span every team.
+    assert client_for(getattr(people, who)).get("/api/audit/verify/").status_code == 403
+    response = client_for(people.sam).get("/api/audit/verify/")
+    assert response.status_code == 200 and response.data["ok"] is True

@@ -10,6 +10,7 @@ from drf_spectacular.types import OpenApiTypes
 from drf_spectacular.utils import extend_schema
 from rest_framework import mixins, viewsets
 from rest_framework.decorators import action
+from rest_framework.permissions import IsAdminUser, IsAuthenticated
 from rest_framework.response import Response
 from rest_framework.throttling import ScopedRateThrottle
 from rest_framework.views import APIView
@@ -72,7 +73,13 @@ class TeamViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets.Gen
 
 
 class AuditVerifyView(APIView):
-    """Walk the whole audit chain and report the first broken link, if any."""
+    """Walk the whole audit chain and report the first broken link, if any (staff only).
+
+    The chain spans every team, and its problem reports name decisions and signers
+    of all of them, so only staff (who administer every team) may run it here.
+    """
+
+    permission_classes = (IsAuthenticated, IsAdminUser)
 
     @extend_schema(responses=OpenApiTypes.OBJECT)
     def get(self, request):

@@ -1,4 +1,4 @@
-"""The documented app role (deploy/app_role_grants.sql) can run the register and cannot
+"""The documented app role (decisions/deploy/app_role_grants.sql) can run the register and cannot
 change or remove a record, even with the triggers out of the way (PostgreSQL).
 
 Layer 1 of "append-only in the database" in the reliability notes: privileges.
@@ -18,7 +18,7 @@ from tests.personas import small_table
 
 pytestmark = [pytest.mark.postgres, pytest.mark.django_db]
 
-GRANTS = Path(__file__).resolve().parent.parent / "deploy" / "app_role_grants.sql"
+GRANTS = Path(__file__).resolve().parent.parent / "decisions" / "deploy" / "app_role_grants.sql"
 ROLE = "register_app_test"
 RECORD_TABLES = ["decisions_auditevent", "decisions_modelversion", "decisions_signoff",
                  "decisions_chosenstrategy", "decisions_studyrecord", "decisions_outcome",

@@ -125,45 +125,71 @@ class ChainReport:
                 "head_hash": self.head_hash, "first_break": self.first_break}
 
 
+#: The fields a walk along the chain reads, in the order ``_walk`` takes them.
+_WALK_FIELDS = ("seq", "created_at", "actor_id", "actor_username", "action", "object_type",
+                "object_id", "payload", "payload_canonical", "prev_hash", "hash")
+# canonical_json without its number normalisation, for envelopes whose numbers are all
+# ints or None (normalising those changes nothing): the same bytes, a third of the time.
+_ENVELOPE_JSON = json.JSONEncoder(sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+                                  allow_nan=False).encode
+
+
 def verify_events(events: Iterable[Any]) -> ChainReport:
     """Check links, sequence and hashes of events given in ascending ``seq`` order.
 
     Stops at the first broken link (later links cannot be trusted after it).
     ``events`` may be model instances or dicts with the same fields (an export).
     """
+    def row(event):
+        if isinstance(event, dict):
+            return tuple(event.get(name) for name in _WALK_FIELDS)
+        return tuple(getattr(event, name) for name in _WALK_FIELDS)
+
+    return _walk(row(event) for event in events)
+
+
+def _walk(rows: Iterable[tuple]) -> ChainReport:
+    """``verify_events`` over tuples in ``_WALK_FIELDS`` order: the one loop both paths use.
+
+    A million events pass through here in ``verify_audit``, so the loop body is kept
+    to two JSON decodes, one JSON encode and two SHA-256 per event (no model instances).
+    """
     report = ChainReport()
     expected_seq, prev_hash = 1, GENESIS_HASH
-    for event in events:
-        get = event.get if isinstance(event, dict) else lambda name, e=event: getattr(e, name)
-        seq = get("seq")
+    sha256, loads = hashlib.sha256, json.loads
+    for (seq, created_at, actor_id, actor_username, action, object_type, object_id, payload,
+         canonical, event_prev, digest) in rows:
         where = f"event #{seq}"
-        canonical = get("payload_canonical")
-        created_at = get("created_at")
-        created_text = created_at if isinstance(created_at, str) else created_at.isoformat()
         problem = None
         if seq != expected_seq:
             problem = (f"{where}: expected sequence number {expected_seq} "
                        f"(an event is missing or out of order)")
-        elif get("prev_hash") != prev_hash:
+        elif event_prev != prev_hash:
             problem = f"{where}: prev_hash does not match the hash of event #{expected_seq - 1}"
-        elif json.loads(canonical) != get("payload"):
+        elif loads(canonical) != payload:
             problem = f"{where}: payload differs from the canonical text that was hashed"
         else:
             envelope = event_envelope(
-                seq=seq, created_at=created_text, actor_id=get("actor_id"),
-                actor_username=get("actor_username"), action=get("action"),
-                object_type=get("object_type"), object_id=get("object_id"),
-                payload_sha256=hashlib.sha256(canonical.encode("utf-8")).hexdigest(),
-                prev_hash=get("prev_hash"),
+                seq=seq,
+                created_at=created_at if isinstance(created_at, str) else created_at.isoformat(),
+                actor_id=actor_id, actor_username=actor_username, action=action,
+                object_type=object_type, object_id=object_id,
+                payload_sha256=sha256(canonical.encode("utf-8")).hexdigest(),
+                prev_hash=event_prev,
             )
-            if sha256_hex(envelope) != get("hash"):
+            if type(seq) is int and (actor_id is None or type(actor_id) is int):
+                encoded = _ENVELOPE_JSON(envelope).encode("utf-8")
+            else:  # an export with odd numbers: the full canonical form decides
+                encoded = canonical_json(envelope)
+            if sha256(encoded).hexdigest() != digest:
                 problem = f"{where}: hash does not match its content (the event was altered)"
         if problem:
             report.problems.append(problem)
-            return report
+            break
         report.count += 1
-        report.head_seq, report.head_hash = seq, get("hash")
-        expected_seq, prev_hash = seq + 1, get("hash")
+        expected_seq, prev_hash = seq + 1, digest
+    # the last good event (sequence numbers were checked to run 1, 2, 3...)
+    report.head_seq, report.head_hash = expected_seq - 1, prev_hash
     return report
 
 
@@ -175,8 +201,9 @@ def verify_chain(*, checkpoint: dict | None = None, chunk_size: int = 2000) -> C
     with that hash, which catches truncation and a wholesale rewrite that the
     links alone cannot.
     """
-    events = AuditEvent.objects.order_by("seq").iterator(chunk_size=chunk_size)
-    report = verify_events(events)
+    # Plain tuples, streamed in chunks: no model instance per event, memory flat.
+    rows = AuditEvent.objects.order_by("seq").values_list(*_WALK_FIELDS)
+    report = _walk(rows.iterator(chunk_size=chunk_size))
     if not report.ok:
         return report
     head = ChainHead.objects.filter(pk=1).first()

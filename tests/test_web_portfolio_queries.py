@@ -30,14 +30,16 @@ def test_the_page_reads_the_same_number_of_queries_for_5_and_50_decisions(people
     clone_outcomes(template, 4)
     client = Client()
     client.force_login(people.ana)
-    with CaptureQueriesContext(connection) as five:
+    # Counted at once: the next request's request_started signal empties the query log.
+    with CaptureQueriesContext(connection) as queries:
         small = client.get("/portfolio/")
+    five = [q["sql"] for q in queries.captured_queries]
     clone_outcomes(template, 45)
-    with CaptureQueriesContext(connection) as fifty:
+    with CaptureQueriesContext(connection) as queries:
         large = client.get("/portfolio/")
+    fifty = [q["sql"] for q in queries.captured_queries]
     assert small.status_code == large.status_code == 200
     # every copied decision is listed (the table names each; the chart repeats some)
     assert len(set(re.findall(r"Clone \d+ \(invented\)", small.content.decode()))) == 4
     assert len(set(re.findall(r"Clone \d+ \(invented\)", large.content.decode()))) == 45
-    assert len(fifty.captured_queries) == len(five.captured_queries), [
-        q["sql"] for q in fifty.captured_queries]
+    assert 0 < len(fifty) == len(five), fifty

@@ -11,6 +11,7 @@ import hashlib
 import json
 from collections.abc import Iterable
 from dataclasses import dataclass, field
+from json.encoder import encode_basestring as _json_string
 from typing import Any
 
 from django.db import transaction
@@ -125,13 +126,31 @@ class ChainReport:
                 "head_hash": self.head_hash, "first_break": self.first_break}
 
 
+_ENVELOPE_ARGS = ("seq", "created_at", "actor_id", "actor_username", "action", "object_type",
+                  "object_id", "payload_sha256", "prev_hash")
 #: The fields a walk along the chain reads, in the order ``_walk`` takes them.
 _WALK_FIELDS = ("seq", "created_at", "actor_id", "actor_username", "action", "object_type",
                 "object_id", "payload", "payload_canonical", "prev_hash", "hash")
-# canonical_json without its number normalisation, for envelopes whose numbers are all
-# ints or None (normalising those changes nothing): the same bytes, a third of the time.
-_ENVELOPE_JSON = json.JSONEncoder(sort_keys=True, separators=(",", ":"), ensure_ascii=False,
-                                  allow_nan=False).encode
+
+
+def _envelope_text(seq, created_at, actor_id, actor_username, action, object_type, object_id,
+                   payload_sha256, prev_hash) -> str | None:
+    """``canonical_json(event_envelope(...))`` as text, written out directly; None when a
+    field is not of the plain type this shortcut assumes (the caller then encodes fully).
+
+    A million envelopes go through ``verify_audit``: writing the nine fields in key order
+    with json's own string escaper takes a quarter of the time of a sorted dict encode.
+    tests/test_audit_envelope_text.py checks it against ``canonical_json``.
+    """
+    if type(seq) is not int or not (actor_id is None or type(actor_id) is int) or not all(
+            type(v) is str for v in (created_at, actor_username, action, object_type, object_id,
+                                     payload_sha256, prev_hash)):
+        return None
+    q = _json_string
+    return (f'{{"action":{q(action)},"actor_id":{"null" if actor_id is None else actor_id},'
+            f'"actor_username":{q(actor_username)},"created_at":{q(created_at)},'
+            f'"object_id":{q(object_id)},"object_type":{q(object_type)},'
+            f'"payload_sha256":{q(payload_sha256)},"prev_hash":{q(prev_hash)},"seq":{seq}}}')
 
 
 def verify_events(events: Iterable[Any]) -> ChainReport:
@@ -169,18 +188,13 @@ def _walk(rows: Iterable[tuple]) -> ChainReport:
         elif loads(canonical) != payload:
             problem = f"{where}: payload differs from the canonical text that was hashed"
         else:
-            envelope = event_envelope(
-                seq=seq,
-                created_at=created_at if isinstance(created_at, str) else created_at.isoformat(),
-                actor_id=actor_id, actor_username=actor_username, action=action,
-                object_type=object_type, object_id=object_id,
-                payload_sha256=sha256(canonical.encode("utf-8")).hexdigest(),
-                prev_hash=event_prev,
-            )
-            if type(seq) is int and (actor_id is None or type(actor_id) is int):
-                encoded = _ENVELOPE_JSON(envelope).encode("utf-8")
-            else:  # an export with odd numbers: the full canonical form decides
-                encoded = canonical_json(envelope)
+            fields = (seq, created_at if isinstance(created_at, str) else created_at.isoformat(),
+                      actor_id, actor_username, action, object_type, object_id,
+                      sha256(canonical.encode("utf-8")).hexdigest(), event_prev)
+            text = _envelope_text(*fields)
+            # an export with odd types: the full canonical form decides
+            encoded = canonical_json(event_envelope(**dict(zip(_ENVELOPE_ARGS, fields, strict=True)))) \
+                if text is None else text.encode("utf-8")
             if sha256(encoded).hexdigest() != digest:
                 problem = f"{where}: hash does not match its content (the event was altered)"
         if problem:

@@ -239,3 +239,18 @@ def test_a_signal_probability_a_rounding_step_above_one_still_expands():
     tree = valuation.expand(doc)
     assert valuation.validate(tree) == []
     assert valuation.evaluate(doc, risk_tolerance=50)["studies"][0]["evsi"] == 0.0
+
+
+@settings(max_examples=60, deadline=None)
+@given(trees(), st.one_of(st.none(), st.floats(min_value=10, max_value=10_000)))
+def test_batched_learning_values_equal_one_rollback_per_outcome(doc, tolerance):
+    from valuation.checks import Problems
+    from valuation.flattree import CHANCE, build_tree, rollback
+    from valuation.tree_eval import learning_value, learning_values
+
+    tree = build_tree(doc, Problems())
+    base = rollback(tree, risk_tolerance=tolerance)
+    nodes = [int(i) for i in np.flatnonzero(tree.kind == CHANCE)]
+    batched = learning_values(tree, nodes, base, tolerance)
+    single = [learning_value(tree, i, base, tolerance) for i in nodes]
+    assert batched == pytest.approx(single, abs=1e-7)

@@ -21,6 +21,7 @@ from valuation.table_eval import TableValues, value_table
 from valuation.tree_eval import (
     clairvoyant_value,
     learning_value,
+    learning_values,
     node_details,
     plan_steps,
     plan_text,
@@ -336,8 +337,9 @@ def _learning_values(tree: FlatTree, rb, r, warnings: list[str]) -> list[dict]:
         warnings.append(f"value of learning reported for the {MAX_LEARNING_NODES} chance nodes "
                         "nearest the root only")
         chance = chance[:MAX_LEARNING_NODES]
-    return [{"node": tree.ids[i], "name": tree.names[i], "value": learning_value(tree, i, rb, r)}
-            for i in chance]
+    values = learning_values(tree, list(chance), rb, r)
+    return [{"node": tree.ids[i], "name": tree.names[i], "value": v}
+            for i, v in zip(chance, values, strict=True)]
 
 
 def value_of_learning(doc: Any, node_id: str, *, risk_tolerance: float | None = None) -> float:

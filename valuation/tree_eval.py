@@ -220,3 +220,66 @@ def _max_of_independent(parts):
         cdf *= np.where(idx >= 0, cum[np.maximum(idx, 0)], 0.0)
     pmf = np.diff(np.concatenate(([0.0], cdf)))
     return _merge(support, np.clip(pmf, 0.0, None))
+
+
+def _root_values(tree: FlatTree, prob_rows: np.ndarray, risk_tolerance=None) -> np.ndarray:
+    """Root value for each row of branch probabilities, all rows rolled back together.
+
+    Values only (no choices are kept), so ties need no rule here; ``rollback`` stays
+    the reference, and the tests hold the two equal.
+    """
+    r = risk_tolerance
+    rows = prob_rows.shape[0]
+    value = np.tile(np.where(tree.kind == END, tree.payoff, 0.0), (rows, 1))
+    for a, b in reversed(tree.level_slices):
+        if a == b:
+            continue
+        parents_all = tree.parent[a:b]
+        starts = np.concatenate(([0], np.flatnonzero(parents_all[1:] != parents_all[:-1]) + 1))
+        parents = parents_all[starts]
+        bv = tree.cash[a:b][None, :] + value[:, tree.child[a:b]]
+        p = prob_rows[:, a:b]
+        if r:
+            live = p > 0
+            seg = np.repeat(np.arange(len(starts)), np.diff(np.append(starts, b - a)))
+            m = np.minimum.reduceat(np.where(live, bv, np.inf), starts, axis=1)
+            with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+                e = np.where(live, np.exp(np.where(live, -(bv - m[:, seg]) / r, 0.0)), 0.0)
+                chance = m - r * np.log(np.add.reduceat(p * e, starts, axis=1))
+        else:
+            chance = np.add.reduceat(p * bv, starts, axis=1)
+        top = np.maximum.reduceat(bv, starts, axis=1)
+        value[:, parents] = np.where((tree.kind[parents] == CHANCE)[None, :], chance, top)
+    return value[:, tree.root]
+
+
+def learning_values(tree: FlatTree, nodes, base: Rollback, risk_tolerance=None) -> list[float]:
+    """``learning_value`` of several chance nodes at once: one batched rollback for all
+    their revealed outcomes instead of one rollback per outcome."""
+    rows, owners, weights = [], [], []
+    for k, node in enumerate(nodes):
+        branches = list(_branches(tree, node))
+        for b in branches:
+            p = float(tree.prob[b])
+            if p <= 0:
+                continue
+            forced = tree.prob.copy()
+            forced[branches] = 0.0
+            forced[b] = 1.0
+            rows.append(forced)
+            owners.append(k)
+            weights.append(p)
+    if not rows:
+        return []
+    revealed = _root_values(tree, np.vstack(rows), risk_tolerance)
+    owners_a, weights_a = np.asarray(owners), np.asarray(weights)
+    base_value = float(base.value[tree.root])
+    out = []
+    for k in range(len(nodes)):
+        mine = owners_a == k
+        if risk_tolerance:
+            with_info = certainty_equivalent(revealed[mine], weights_a[mine], risk_tolerance)
+        else:
+            with_info = float(np.dot(revealed[mine], weights_a[mine]))
+        out.append(max(0.0, with_info - base_value))
+    return out

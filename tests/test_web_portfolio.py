@@ -111,3 +111,23 @@ def test_sources_are_compared_with_their_claims(reviewed, people):
 def test_a_team_without_outcomes_says_so(people):
     page = html(client_as(people.ana).get(URL))
     assert "No outcome recorded yet." in page and "No forecasts yet" in page
+
+
+
+def test_the_over_time_table_lists_the_most_recent_outcomes_and_totals_them_all():
+    import datetime
+    from types import SimpleNamespace
+
+    from decisions.web import presenters_sources as pres
+
+    outcomes = [SimpleNamespace(currency="EUR", expected_value=10.0, realised_value=12.0,
+                                recorded_at=datetime.datetime(2026, 1, 1),
+                                decision=SimpleNamespace(pk=i, title=f"D{i}"),
+                                path_probability=0.5)
+                for i in range(pres.HISTORY_ROWS + 5)]
+    data = {"totals": [], "calibration": {"forecasts": 0, "table": []}, "sources": []}
+    view = pres.portfolio_view(data, outcomes)
+    assert len(view["history"]) == pres.HISTORY_ROWS
+    assert view["history_hidden"] == 5
+    # 105 outcomes of 10 expected each: the last row's running total counts them all.
+    assert view["history"][-1]["cum_expected"].startswith("1,050")

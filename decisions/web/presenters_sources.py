@@ -150,15 +150,24 @@ def review_view(data: dict, title: str) -> dict:
     }
 
 
+#: The "over time" table lists at most this many outcomes, the most recent.
+HISTORY_ROWS = 100
+
+
 def portfolio_view(data: dict, outcomes: list) -> dict:
     """The service's portfolio figures and the outcomes in force (oldest first) as rows."""
     cal = data["calibration"]
     running: dict[str, list[float]] = {}
     history = []
-    for o in outcomes:
+    # Running totals cover every outcome, but only the most recent rows are listed:
+    # a team with thousands of decisions would otherwise get a page of thousands of rows.
+    listed_from = max(0, len(outcomes) - HISTORY_ROWS)
+    for n, o in enumerate(outcomes):
         sums = running.setdefault(o.currency, [0.0, 0.0])
         sums[0] += o.expected_value
         sums[1] += o.realised_value
+        if n < listed_from:
+            continue
         history.append({"outcome": o, "date": o.recorded_at, "decision": o.decision,
                         "expected": money(o.expected_value, o.currency),
                         "realised": money(o.realised_value, o.currency),
@@ -215,5 +224,6 @@ def portfolio_view(data: dict, outcomes: list) -> dict:
                "difference": money(t["realised_minus_expected"], t["currency"]),
                "mean_probability": prob(t["mean_probability_of_what_happened"])}
               for t in data["totals"]]
-    return {"totals": totals, "history": history, "charts": charts, "calibration": calibration,
+    return {"totals": totals, "history": history, "history_hidden": listed_from,
+            "charts": charts, "calibration": calibration,
             "sources": sources}

@@ -131,3 +131,19 @@ def test_the_over_time_table_lists_the_most_recent_outcomes_and_totals_them_all(
     assert view["history_hidden"] == 5
     # 105 outcomes of 10 expected each: the last row's running total counts them all.
     assert view["history"][-1]["cum_expected"].startswith("1,050")
+
+
+def test_running_totals_count_outcomes_too_old_to_be_listed(reviewed, people, monkeypatch):
+    from decisions.web import views_portfolio
+
+    second = committed(people)
+    outcomes.record_outcome(second.pk, actor=people.ana, if_match=IF_MATCH_ANY,
+                            path={"study0/signal": "good", "study0/g0/a0": "cold"},
+                            realised_value=-1_000_000)
+    monkeypatch.setattr(views_portfolio, "HISTORY_ROWS", 1)
+    page = html(client_as(people.vic).get(URL))
+    over_time = page.split('class="history"')[1].split("</table>")[0]
+    assert "1 earlier outcomes are in the running totals" in over_time
+    # Two outcomes of 4,320,000 expected each (hand-worked above): the one listed row
+    # carries the running total of both, and realised -1,300,000 - 1,000,000.
+    assert "8,640,000 EUR" in over_time and "−2,300,000 EUR" in over_time

@@ -154,10 +154,16 @@ def review_view(data: dict, title: str) -> dict:
 HISTORY_ROWS = 100
 
 
-def portfolio_view(data: dict, outcomes: list) -> dict:
-    """The service's portfolio figures and the outcomes in force (oldest first) as rows."""
+def portfolio_view(data: dict, outcomes: list, earlier: dict | None = None,
+                   hidden: int = 0) -> dict:
+    """The service's portfolio figures and the outcomes in force (oldest first) as rows.
+
+    ``earlier`` maps a currency to the (expected, realised) sums of the outcomes
+    before ``outcomes`` that are not listed (``hidden`` of them), so running
+    totals still count every outcome.
+    """
     cal = data["calibration"]
-    running: dict[str, list[float]] = {}
+    running: dict[str, list[float]] = {cur: list(sums) for cur, sums in (earlier or {}).items()}
     history = []
     # Running totals cover every outcome, but only the most recent rows are listed:
     # a team with thousands of decisions would otherwise get a page of thousands of rows.
@@ -224,6 +230,6 @@ def portfolio_view(data: dict, outcomes: list) -> dict:
                "difference": money(t["realised_minus_expected"], t["currency"]),
                "mean_probability": prob(t["mean_probability_of_what_happened"])}
               for t in data["totals"]]
-    return {"totals": totals, "history": history, "history_hidden": listed_from,
+    return {"totals": totals, "history": history, "history_hidden": listed_from + hidden,
             "charts": charts, "calibration": calibration,
             "sources": sources}

@@ -8,6 +8,7 @@ the outcomes in force one by one, oldest first, for the "over time" view.
 from __future__ import annotations
 
 from django.contrib.auth.decorators import login_required
+from django.db.models import Count, Sum
 from django.http import Http404
 from django.shortcuts import render
 
@@ -15,7 +16,7 @@ from decisions.models import Outcome
 from decisions.services import portfolio as svc
 from decisions.services.access import visible_teams
 from decisions.services.errors import DomainError
-from decisions.web.presenters_sources import portfolio_view
+from decisions.web.presenters_sources import HISTORY_ROWS, portfolio_view
 
 __all__ = ["portfolio"]
 
@@ -41,8 +42,16 @@ def portfolio(request):
         raise Http404("no such team among yours") from None
     context["team"] = team
     data = svc.portfolio(request.user, team, bins=context["bins"])
-    # The team was just checked to be one of the user's: its outcomes in force, oldest first.
-    rows = list(Outcome.objects.filter(decision__team_id=team.pk, superseded_by__isnull=True)
-                .select_related("decision").order_by("recorded_at", "id"))
-    context["p"] = portfolio_view(data, rows)
+    # The team was just checked to be one of the user's: its most recent outcomes in
+    # force, oldest first, and the sums of the earlier ones (for the running totals),
+    # in two queries whatever the team's size.
+    in_force = Outcome.objects.filter(decision__team_id=team.pk, superseded_by__isnull=True)
+    rows = list(in_force.select_related("decision")
+                .order_by("-recorded_at", "-id")[:HISTORY_ROWS])[::-1]
+    earlier_rows = in_force.exclude(pk__in=[o.pk for o in rows])
+    sums = list(earlier_rows.values("currency").order_by("currency").annotate(
+        expected=Sum("expected_value"), realised=Sum("realised_value"), count=Count("id")))
+    earlier = {row["currency"]: (row["expected"], row["realised"]) for row in sums}
+    hidden = sum(row["count"] for row in sums)
+    context["p"] = portfolio_view(data, rows, earlier, hidden)
     return render(request, "web/portfolio.html", context)

@@ -32,3 +32,17 @@ def main(argv: list[str] | None = None) -> int:
 
 if __name__ == "__main__":  # pragma: no cover
     sys.exit(main())
+
+
+EXIT_INVALID = 2
+
+
+def print_invalid(exc: Exception) -> int:
+    """Print a refused input as ``error: location: rule`` lines; return the exit code for it.
+
+    Every sub-command reports bad input the same way, so scripts can rely on it.
+    """
+    problems = getattr(exc, "problems", None)
+    for line in problems if problems else [exc]:
+        print(f"error: {line}", file=sys.stderr)
+    return EXIT_INVALID

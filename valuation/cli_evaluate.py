@@ -7,13 +7,13 @@ import json
 import math
 import sys
 
-from valuation.errors import ModelValidationError, ValuationError
+from valuation.cli import print_invalid
+from valuation.errors import ValuationError
 from valuation.evaluate import evaluate
 from valuation.report import render_text
 
 __all__ = ["add_parser", "run", "load_document"]
 
-EXIT_INVALID = 2
 
 
 def add_parser(sub) -> None:
@@ -54,13 +54,8 @@ def run(args) -> int:
         # runs one command on one thread, so the global switch is safe here).
         gc.freeze()
         result = evaluate(document, risk_tolerance=args.risk_tolerance)
-    except ModelValidationError as exc:
-        for problem in exc.problems:
-            print(f"error: {problem}", file=sys.stderr)
-        return EXIT_INVALID
-    except ValuationError as exc:
-        print(f"error: {exc}", file=sys.stderr)
-        return EXIT_INVALID
+    except ValuationError as exc:  # ModelValidationError included: one line a problem
+        return print_invalid(exc)
     if args.json:
         json.dump(result, sys.stdout, allow_nan=False)
         sys.stdout.write("\n")

@@ -20,6 +20,7 @@ import os
 import sys
 from typing import Any
 
+from valuation.cli import EXIT_INVALID, print_invalid
 from valuation.errors import ModelValidationError, Problem, ValuationError
 from valuation.records_csv import read_records_csv
 from valuation.reliability import (
@@ -33,7 +34,6 @@ from valuation.reliability import (
 
 __all__ = ["add_parser", "run", "load_json_mapping", "render_text"]
 
-EXIT_INVALID = 2
 EXIT_FAILURE = 1
 #: A claim table or prior is a few lines; anything larger than this is a wrong file.
 MAX_JSON_BYTES = 1024 * 1024
@@ -217,13 +217,8 @@ def run(args: argparse.Namespace) -> int:
         for line in exc.lines:
             print(f"error: {line}", file=sys.stderr)
         return EXIT_INVALID
-    except ModelValidationError as exc:
-        for problem in exc.problems:
-            print(f"error: {problem}", file=sys.stderr)
-        return EXIT_INVALID
-    except ValuationError as exc:
-        print(f"error: {exc}", file=sys.stderr)
-        return EXIT_INVALID
+    except ValuationError as exc:  # ModelValidationError included: one line a problem
+        return print_invalid(exc)
     except Exception as exc:  # never a traceback to a user (house rule); exit 1
         print(f"error: unexpected failure ({type(exc).__name__}: {exc})", file=sys.stderr)
         return EXIT_FAILURE

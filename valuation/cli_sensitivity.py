@@ -16,15 +16,15 @@ import json
 import math
 import sys
 
+from valuation.cli import print_invalid
 from valuation.cli_evaluate import load_document
-from valuation.errors import ModelValidationError, ValuationError
+from valuation.errors import ValuationError
 from valuation.parameters import MONEY_KINDS, RESCALING_NOTE, list_parameters
 from valuation.report import CAUTION
 from valuation.sensitivity import one_way, sweep_points, tornado, two_way
 
 __all__ = ["add_parser", "run"]
 
-EXIT_INVALID = 2
 _PLAN_MARKS = "ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789"
 
 
@@ -116,13 +116,8 @@ def run(args) -> int:
         _check_options(args)
         doc = load_document(args.file)
         mode, result = _compute(args, doc)
-    except ModelValidationError as exc:
-        for problem in exc.problems:
-            print(f"error: {problem}", file=sys.stderr)
-        return EXIT_INVALID
-    except ValuationError as exc:
-        print(f"error: {exc}", file=sys.stderr)
-        return EXIT_INVALID
+    except ValuationError as exc:  # ModelValidationError included: one line a problem
+        return print_invalid(exc)
     if args.json:
         json.dump({"mode": mode, "result": result}, sys.stdout, allow_nan=False)
         sys.stdout.write("\n")

@@ -112,6 +112,19 @@ def _ce_rows(x: np.ndarray, p: np.ndarray, r: float, axis: int) -> np.ndarray:
         return np.squeeze(m, axis=axis) - r * np.log(total)
 
 
+def _ce_over_signals(value_by_signal, ps, live, r: float) -> np.ndarray:
+    """Certainty equivalent, per row, of the values after each possible signal.
+
+    Shifted by the row's smallest live value so no exponential overflows; signals
+    that cannot occur are left out.
+    """
+    vals = np.where(live, value_by_signal, np.inf)
+    m = vals.min(axis=1, keepdims=True)
+    with np.errstate(over="ignore", invalid="ignore"):
+        e = np.where(live, np.exp(np.where(live, -(vals - m) / r, 0.0)), 0.0)
+    return m[:, 0] - r * np.log(np.sum(np.where(live, ps, 0.0) * e, axis=1))
+
+
 def _table_batch(t: PayoffTable, prior, payoffs, costs, liks, r: float | None) -> BatchValues:
     s = t.sign
     n = payoffs.shape[0]
@@ -140,11 +153,7 @@ def _table_batch(t: PayoffTable, prior, payoffs, costs, liks, r: float | None) -
         safe_best = np.maximum(best, 0)
         value_by_signal = np.take_along_axis(sig_crit, safe_best[:, None, :], axis=1)[:, 0, :]
         if r:
-            vals = np.where(live, value_by_signal, np.inf)
-            m = vals.min(axis=1, keepdims=True)
-            with np.errstate(over="ignore", invalid="ignore"):
-                e = np.where(live, np.exp(np.where(live, -(vals - m) / r, 0.0)), 0.0)
-            free = m[:, 0] - r * np.log(np.sum(np.where(live, ps, 0.0) * e, axis=1))
+            free = _ce_over_signals(value_by_signal, ps, live, r)
         else:
             free = np.sum(np.where(live, ps * value_by_signal, 0.0), axis=1)
         plan_ev = np.sum(np.where(live, np.take_along_axis(jv, safe_best[:, None, :], axis=1)[:, 0, :],
@@ -399,11 +408,7 @@ def _table_plan_value(t: PayoffTable, prior, payoffs, costs, liks, key, r) -> np
     pick = np.where(choice[None, :] >= 0, choice[None, :], _first_best(sig_crit, axis=1))
     value_by_signal = np.take_along_axis(sig_crit, pick[:, None, :], axis=1)[:, 0, :]
     if r:
-        vals = np.where(live, value_by_signal, np.inf)
-        m = vals.min(axis=1, keepdims=True)
-        with np.errstate(over="ignore", invalid="ignore"):
-            e = np.where(live, np.exp(np.where(live, -(vals - m) / r, 0.0)), 0.0)
-        free = m[:, 0] - r * np.log(np.sum(np.where(live, ps, 0.0) * e, axis=1))
+        free = _ce_over_signals(value_by_signal, ps, live, r)
     else:
         free = np.sum(np.where(live, np.take_along_axis(jv, pick[:, None, :], axis=1)[:, 0, :], 0.0),
                       axis=1)

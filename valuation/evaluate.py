@@ -98,9 +98,7 @@ def evaluate(doc: Any, *, risk_tolerance: float | None = None) -> dict:
 
 def _header(model, r) -> dict:
     rate = model.discount_rate
-    basis = f"present value at {rate:.4g} a year" if rate else "expected value"
-    if rate:
-        basis = f"present value at {rate * 100:.4g}% a year"
+    basis = f"present value at {rate * 100:.4g}% a year" if rate else "expected value"
     return {
         "kind": "payoff_table" if isinstance(model, PayoffTable) else "tree",
         "title": model.title,

@@ -20,6 +20,9 @@ def _post_raw(client, url, body: bytes, content_type="application/json"):
     (b'{"document": {"title": "x\\u0000"}}', "body.document.title",
      "must not contain the character U+0000"),
     (b"[" * 65 + b"]" * 65, "body", "must not nest deeper than 64 levels"),
+    (b'{"a": [' * 33 + b"1" + b"]}" * 33, "body",
+     "must not nest deeper than 64 levels"),
+    (b'{"document": {"x\\u0000": 1}}', "body.document", "object keys must not contain U+0000"),
     (b"[" * 20000 + b"]" * 20000, "body", "must not nest deeper than 64 levels"),
     (b'{"a": "\xff"}', "body", "must be UTF-8 text (byte 7 is not)"),
     (b'{"a": ', "body", "is not valid JSON: Expecting value: line 1 column 7 (char 6)"),
@@ -36,6 +39,17 @@ def test_strings_that_look_like_brackets_do_not_count_as_nesting(people, client_
     doc = small_table(title="[" * 100)
     response = client_for(people.ana).post("/api/evaluate/", {"document": doc}, format="json")
     assert response.status_code == 200, response.data
+
+
+@pytest.mark.parametrize("body", [
+    b"[" * 64 + b"]" * 64,  # exactly the limit
+    b'{"a": [' * 32 + b"1" + b"]}" * 32,  # objects and lists, exactly the limit
+    b'{"document": {"title": "back\\\\u0000slash"}}',  # an escaped backslash, then text
+])
+def test_bodies_within_the_rules_reach_the_view(people, client_for, body):
+    response = _post_raw(client_for(people.ana), "/api/evaluate/", body)
+    assert response.status_code == 400  # the parser accepts; the view refuses the content
+    assert response.json()["code"] != "invalid_body", response.json()
 
 
 def test_an_oversized_body_is_refused(people, client_for, settings):
@@ -152,3 +166,13 @@ def test_server_owned_fields_cannot_be_assigned(draft, people, client_for, url, 
     assert response.status_code == 400
     assert {"location": field, "message": "is not an accepted field here"} in \
         response.data["errors"]
+
+
+@pytest.mark.parametrize("tolerance", [-5, 0])
+def test_a_risk_tolerance_that_is_not_positive_is_named_as_such(people, client_for, tolerance):
+    body = {"document": small_table(), "risk_tolerance": tolerance}
+    response = client_for(people.ana).post("/api/evaluate/", body, format="json")
+    assert response.status_code == 400
+    assert response.json()["errors"] == [
+        {"location": "risk_tolerance",
+         "message": f"must be a positive finite number, got {float(tolerance)}"}]

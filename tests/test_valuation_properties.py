@@ -254,3 +254,54 @@ def test_batched_learning_values_equal_one_rollback_per_outcome(doc, tolerance):
     batched = learning_values(tree, nodes, base, tolerance)
     single = [learning_value(tree, i, base, tolerance) for i in nodes]
     assert batched == pytest.approx(single, abs=1e-7)
+
+
+def brute_force_clairvoyant_value(doc) -> Fraction:
+    """Expected value when every chance node's outcome is known before any choice.
+
+    Enumerates every joint outcome of all chance nodes in exact rational arithmetic;
+    given one, the tree is deterministic and each decision takes its best branch.
+    Independent of the core's distribution arithmetic (definition of EVPI with each
+    chance node its own uncertainty: Howard, IEEE Trans. SSC-2(1), 1966).
+    """
+    nodes = {n["id"]: n for n in doc["nodes"]}
+    chances = [n for n in doc["nodes"] if n["kind"] == "chance"]
+
+    def value(nid, outcome):
+        node = nodes[nid]
+        if node["kind"] == "end":
+            return Fraction(node["payoff"])
+        if node["kind"] == "chance":
+            br = node["branches"][outcome[nid]]
+            return Fraction(br.get("cash_flow", 0)) + value(br["to"], outcome)
+        return max(Fraction(br.get("cash_flow", 0)) + value(br["to"], outcome)
+                   for br in node["branches"])
+
+    total = Fraction(0)
+    for combo in itertools.product(*[range(len(n["branches"])) for n in chances]):
+        outcome = {n["id"]: c for n, c in zip(chances, combo, strict=True)}
+        weight = Fraction(1)
+        for n, c in zip(chances, combo, strict=True):
+            weight *= Fraction(n["branches"][c]["probability"])
+        if weight:
+            total += weight * value(doc["root"], outcome)
+    return total
+
+
+@settings(max_examples=80, deadline=None)
+@given(trees())
+def test_tree_evpi_equals_enumerating_every_joint_outcome_in_exact_arithmetic(doc):
+    result = valuation.evaluate(doc)
+    expected = brute_force_clairvoyant_value(doc) - brute_force_value(doc)
+    assert result["evpi"] == pytest.approx(float(expected), abs=1e-9)
+
+
+@settings(max_examples=30, deadline=None)
+@given(trees(max_depth=4, max_branches=3))
+def test_tree_evpi_on_deeper_trees_equals_enumeration(doc):
+    chances = sum(1 for n in doc["nodes"] if n["kind"] == "chance")
+    if chances > 8:  # 3^8 joint outcomes is the most this check enumerates
+        return
+    result = valuation.evaluate(doc)
+    expected = brute_force_clairvoyant_value(doc) - brute_force_value(doc)
+    assert result["evpi"] == pytest.approx(float(expected), abs=1e-9)

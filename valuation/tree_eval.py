@@ -180,46 +180,106 @@ def learning_value(tree: FlatTree, node: int, base: Rollback, risk_tolerance=Non
 
 
 def clairvoyant_value(tree: FlatTree, risk_tolerance=None) -> float:
-    """Value of the tree when every chance node is revealed before the first decision."""
-    dist: dict[int, tuple[np.ndarray, np.ndarray]] = {}
-    order = np.argsort(-tree.depth, kind="stable")
-    for node in order:
-        k = tree.kind[node]
-        if k == END:
-            dist[node] = (np.array([tree.payoff[node]]), np.array([1.0]))
-            continue
-        parts = []
-        for b in _branches(tree, node):
-            v, p = dist.pop(int(tree.child[b]))
-            parts.append((v + tree.cash[b], p * (tree.prob[b] if k == CHANCE else 1.0)))
-        if k == CHANCE:
-            v = np.concatenate([pv for pv, _ in parts])
-            p = np.concatenate([pp for _, pp in parts])
-            dist[node] = _merge(v, p)
-        else:
-            dist[node] = _max_of_independent(parts)
-    v, p = dist[tree.root]
+    """Value of the tree when every chance node is revealed before the first decision.
+
+    Works level by level like the rollback: the value distributions of all nodes at
+    one depth are held in three flat arrays (owner node, value, probability), sorted
+    by owner then value, so each depth costs a fixed number of numpy calls instead of
+    a few per node.
+    """
+    if tree.kind[tree.root] == END:
+        v, p = np.array([tree.payoff[tree.root]]), np.array([1.0])
+    else:
+        pool = _Pool.empty(tree.size)
+        for a, b in reversed(tree.level_slices):
+            if a < b:
+                pool = _next_level(tree, pool, a, b)
+        v, p = pool.value, pool.prob
     if risk_tolerance:
         return certainty_equivalent(v, p, risk_tolerance)
     return float(np.dot(v, p))
 
 
-def _merge(v: np.ndarray, p: np.ndarray):
-    keep = p > 0
-    uniq, inv = np.unique(v[keep], return_inverse=True)
-    return uniq, np.bincount(inv, weights=p[keep], minlength=len(uniq))
+class _Pool:
+    """Distributions of the nodes finished at the last level, one run per node."""
+
+    __slots__ = ("count", "owner", "prob", "start", "value")
+
+    def __init__(self, owner, value, prob, start, count):
+        self.owner, self.value, self.prob = owner, value, prob
+        self.start, self.count = start, count
+
+    @classmethod
+    def empty(cls, n_nodes: int) -> _Pool:
+        return cls(np.zeros(0, np.int64), np.zeros(0), np.zeros(0),
+                   np.zeros(n_nodes, np.int64), np.zeros(n_nodes, np.int64))
 
 
-def _max_of_independent(parts):
-    support = np.unique(np.concatenate([v for v, _ in parts]))
-    cdf = np.ones(len(support))
-    for v, p in parts:
-        order = np.argsort(v)
-        cum = np.cumsum(p[order])
-        idx = np.searchsorted(v[order], support, side="right") - 1
-        cdf *= np.where(idx >= 0, cum[np.maximum(idx, 0)], 0.0)
-    pmf = np.diff(np.concatenate(([0.0], cdf)))
-    return _merge(support, np.clip(pmf, 0.0, None))
+def _next_level(tree: FlatTree, pool: _Pool, a: int, b: int) -> _Pool:
+    """Distributions of the parents of branches ``a:b`` from those of their children."""
+    child = tree.child[a:b]
+    leaf = tree.kind[child] == END
+    counts = np.where(leaf, 1, pool.count[child])
+    branch = np.repeat(np.arange(a, b), counts)
+    first = np.cumsum(counts) - counts
+    pos = np.repeat(pool.start[child] - first, counts) + np.arange(len(branch))
+    leaf_e = leaf[branch - a]
+    pos = np.where(leaf_e, 0, pos)
+    if len(pool.value):
+        value = np.where(leaf_e, tree.payoff[tree.child[branch]], pool.value[pos])
+        prob = np.where(leaf_e, 1.0, pool.prob[pos])
+    else:
+        value, prob = tree.payoff[tree.child[branch]], np.ones(len(branch))
+    value = value + tree.cash[branch]
+    owner = tree.parent[branch]
+    chance = tree.kind[owner] == CHANCE
+    prob = np.where(chance, prob * tree.prob[branch], prob)
+    order = np.lexsort((value, owner))
+    owner, value, prob, branch, chance = (owner[order], value[order], prob[order],
+                                          branch[order], chance[order])
+    # one group per (owner, value); ``last`` is each group's last entry
+    new = np.empty(len(owner), dtype=bool)
+    new[0] = True
+    new[1:] = (owner[1:] != owner[:-1]) | (value[1:] != value[:-1])
+    starts = np.flatnonzero(new)
+    last = np.append(starts[1:], len(owner)) - 1
+    g_owner, g_value = owner[starts], value[starts]
+    g_prob = np.add.reduceat(prob, starts)
+    g_chance = chance[starts]
+    if not g_chance.all():
+        g_prob = np.where(g_chance, g_prob, _max_pmf(tree, owner, prob, branch, last, g_owner))
+    keep = g_prob > 0
+    g_owner, g_value, g_prob = g_owner[keep], g_value[keep], g_prob[keep]
+    # Each node's run is read once, by its parent at the next level, so the per-node
+    # offsets are overwritten in place rather than copied per level.
+    owners, first_at, n_at = np.unique(g_owner, return_index=True, return_counts=True)
+    pool.start[owners] = first_at
+    pool.count[owners] = n_at
+    return _Pool(g_owner, g_value, g_prob, pool.start, pool.count)
+
+
+def _max_pmf(tree: FlatTree, owner, prob, branch, last, g_owner) -> np.ndarray:
+    """Probability of each (owner, value) group being the best of the owner's branches.
+
+    The branches under a decision share no chance node, so they are independent:
+    P(max <= v) is the product over branches of P(branch <= v), and the mass at v
+    is the step of that product. Groups of chance owners get a meaningless value
+    here; the caller keeps only those of decision owners.
+    """
+    local = branch - tree.first_branch[owner]
+    seg_start = np.flatnonzero(np.r_[True, owner[1:] != owner[:-1]])
+    seg_of = np.repeat(np.arange(len(seg_start)), np.diff(np.append(seg_start, len(owner))))
+    k_of = tree.branch_count[owner]
+    cdf = np.ones(len(last))
+    for j in range(int(k_of.max())):
+        w = np.where(local == j, prob, 0.0)
+        run = np.cumsum(w)
+        before = np.where(seg_start > 0, run[seg_start - 1], 0.0)
+        f_j = run[last] - before[seg_of[last]]
+        cdf *= np.where(k_of[last] > j, f_j, 1.0)
+    g_new = np.r_[True, g_owner[1:] != g_owner[:-1]]
+    step = np.where(g_new, cdf, cdf - np.r_[0.0, cdf[:-1]])
+    return np.clip(step, 0.0, None)
 
 
 def _root_values(tree: FlatTree, prob_rows: np.ndarray, risk_tolerance=None) -> np.ndarray:

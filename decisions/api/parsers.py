@@ -4,9 +4,9 @@
   oversized body is refused without being held whole in memory.
 - Only UTF-8 is accepted: a client-chosen charset (``bz2_codec``...) could
   otherwise expand the body after the size check.
-- Nesting deeper than :data:`MAX_DEPTH` is refused by a scan of the raw text
-  before ``json`` recurses (the interpreter's own recursion limit varies by
-  Python version and surfaces as a 500).
+- Nesting deeper than :data:`MAX_DEPTH` is refused: the parser's recursion guard
+  stops pathological nesting (answered as this rule, not a 500), and a walk over
+  the parsed containers enforces the limit itself.
 - NaN, Infinity, duplicate keys and the character U+0000 are refused: jsonb
   keeps the last of duplicate keys and rejects U+0000, so the stored copy and
   the hashed canonical text could otherwise disagree.
@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import json
 import math
-import re
 
 from django.conf import settings
 from rest_framework.exceptions import ParseError
@@ -25,8 +24,7 @@ from rest_framework.parsers import JSONParser
 __all__ = ["MAX_DEPTH", "BodyProblem", "StrictJSONParser", "parse_strict_json"]
 
 MAX_DEPTH = 64
-_STRING = re.compile(r'"(?:[^"\\]|\\.)*"', re.DOTALL)
-_BRACKETS = re.compile(r"[\[\]{}]")
+_NUL_ESCAPE = "\\u0000"
 
 
 class BodyProblem(ParseError):
@@ -58,12 +56,19 @@ def _no_duplicates(pairs):
     return out
 
 
-def _check_depth(text: str) -> None:
-    depth = 0
-    for match in _BRACKETS.finditer(_STRING.sub('""', text)):
-        depth += 1 if match.group() in "[{" else -1
+def _check_depth(data) -> None:
+    # After parsing, level by level over containers: a scan of the raw text had to
+    # skip every string first and cost more than the parse itself. The parser's own
+    # recursion guard (RecursionError) stops pathological nesting before this runs.
+    level, depth = [data], 1
+    while level:
         if depth > MAX_DEPTH:
             raise BodyProblem(f"must not nest deeper than {MAX_DEPTH} levels")
+        level = ([v for item in level if type(item) is dict for v in item.values()
+                  if type(v) is dict or type(v) is list]
+                 + [v for item in level if type(item) is list for v in item
+                    if type(v) is dict or type(v) is list])
+        depth += 1
 
 
 def _check_nul(value, path: str = "body") -> None:
@@ -89,15 +94,21 @@ def parse_strict_json(raw: bytes):
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
         raise BodyProblem(f"must be UTF-8 text (byte {exc.start} is not)") from None
-    _check_depth(text)
     try:
         data = json.loads(text, object_pairs_hook=_no_duplicates, parse_constant=_reject_constant,
                           parse_float=_finite_float)
     except BodyProblem:
         raise
-    except (ValueError, RecursionError) as exc:
+    except RecursionError:
+        raise BodyProblem(f"must not nest deeper than {MAX_DEPTH} levels") from None
+    except ValueError as exc:
         raise BodyProblem(f"is not valid JSON: {exc}") from None
-    _check_nul(data)
+    if isinstance(data, dict | list) and text.count("[") + text.count("{") > MAX_DEPTH:
+        _check_depth(data)
+    # JSON can carry U+0000 only as the escape \u0000 (a raw control character is
+    # refused by the parser), so a body without that text needs no walk.
+    if _NUL_ESCAPE in text:
+        _check_nul(data)
     return data
 
 

@@ -11,7 +11,8 @@ from typing import Any
 import valuation
 from decisions.services.errors import InvalidInput
 from valuation.canonical import canonical_json
-from valuation.errors import ModelValidationError, ValuationError
+from valuation.errors import ModelValidationError, ParameterError, ValuationError
+from valuation.utility import check_risk_tolerance
 
 __all__ = ["evaluate_document", "prepare_document"]
 
@@ -32,9 +33,12 @@ def evaluate_document(document: Any, *, risk_tolerance: float | None = None,
     """
     if not isinstance(document, dict):
         raise InvalidInput("must be a JSON object (a model document)", location=location)
-    problems = valuation.validate(document)
-    if problems:
-        raise _invalid(problems, location)
+    try:
+        risk_tolerance = check_risk_tolerance(risk_tolerance)
+    except ParameterError as exc:
+        raise InvalidInput(str(exc).partition(": ")[2], location="risk_tolerance") from None
+    # ``evaluate`` validates first and lists every problem, so the document is
+    # parsed once, not once to validate and again to evaluate.
     try:
         return valuation.evaluate(document, risk_tolerance=risk_tolerance)
     except ModelValidationError as exc:

@@ -18,6 +18,7 @@ Variables (all optional unless stated):
   username and address before a lockout, and its length (default 5 and 900).
 - ``API_TOKEN_RATE`` / ``API_EVALUATE_RATE``: DRF throttle rates for ``/api/token/``
   and ``/api/evaluate/`` (default ``20/min`` and ``120/min``; fairness, not security).
+- ``API_MEMO_RATE``: memo PDFs per user (default ``30/min``; each costs about 0.5 s of CPU).
 """
 
 from __future__ import annotations
@@ -156,6 +157,7 @@ REST_FRAMEWORK = {
     "DEFAULT_THROTTLE_RATES": {
         "token": os.environ.get("API_TOKEN_RATE", "20/min"),
         "evaluate": os.environ.get("API_EVALUATE_RATE", "120/min"),
+        "memo": os.environ.get("API_MEMO_RATE", "30/min"),
     },
 }
 

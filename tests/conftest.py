@@ -23,6 +23,18 @@ def _fast_password_hashing(settings):
     settings.PASSWORD_HASHERS = ["django.contrib.auth.hashers.MD5PasswordHasher"]
 
 
+@pytest.fixture(autouse=True)
+def _fresh_throttle_counters():
+    # Fairness throttles count in the per-process cache; each test starts from zero
+    # so that one test's requests never spend another's allowance.
+    from django.core.cache import caches
+    from django.core.cache.backends.locmem import LocMemCache
+
+    backend = caches["default"]
+    if isinstance(backend, LocMemCache):  # a database cache is emptied with the database
+        backend.clear()
+
+
 @pytest.fixture
 def people(db):
     return build_personas()

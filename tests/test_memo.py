@@ -448,3 +448,19 @@ def test_sensitivity_is_not_computed_for_a_model_above_the_limit_and_the_memo_sa
     assert out["note"].startswith(f"The model has more than {SENSITIVITY_NODE_LIMIT:,} nodes")
     text = text_of(build_memo(demo_data(small_table(), sensitivity=out)))
     assert f"Sensitivity not computed. The model has more than {SENSITIVITY_NODE_LIMIT:,}" in text
+
+
+@pytest.mark.django_db
+def test_memo_downloads_beyond_the_rate_get_429_with_retry_after(draft, people, client_for,
+                                                                 monkeypatch):
+    from rest_framework.throttling import ScopedRateThrottle
+
+    monkeypatch.setattr(ScopedRateThrottle, "THROTTLE_RATES",
+                        {**ScopedRateThrottle.THROTTLE_RATES, "memo": "2/min"})
+    ana = client_for(people.ana)
+    assert [ana.get(memo_url(draft.pk, 1)).status_code for _ in range(2)] == [200, 200]
+    refused = ana.get(memo_url(draft.pk, 1))
+    assert refused.status_code == 429
+    assert int(refused["Retry-After"]) > 0
+    # the allowance is per user: a colleague is not held back by ana's downloads
+    assert client_for(people.vic).get(memo_url(draft.pk, 1)).status_code == 200

@@ -13,6 +13,7 @@ from __future__ import annotations
 from fractions import Fraction
 
 import pytest
+from django.template.defaultfilters import date as date_filter
 from django.test import Client
 from django.urls import reverse
 
@@ -147,3 +148,14 @@ def test_running_totals_count_outcomes_too_old_to_be_listed(reviewed, people, mo
     # Two outcomes of 4,320,000 expected each (hand-worked above): the one listed row
     # carries the running total of both, and realised -1,300,000 - 1,000,000.
     assert "8,640,000 EUR" in over_time and "−2,300,000 EUR" in over_time
+
+
+def test_an_over_time_row_shows_the_day_recorded_and_links_to_the_review(reviewed, people):
+    outcome = reviewed.outcomes.get()
+    page = html(client_as(people.vic).get(URL))
+    over_time = page.split('class="history"')[1].split("</table>")[0]
+    # The day as Django's own date filter shows it in the site's time zone.
+    day = date_filter(outcome.recorded_at, "Y-m-d")
+    link = reverse("web-review", args=[reviewed.pk])
+    assert f'<tr><td>{day}</td><th scope="row"><a href="{link}">{reviewed.title}</a></th>' \
+        in over_time

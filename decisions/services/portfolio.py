@@ -1,11 +1,13 @@
 """The team's portfolio: expected vs realised, calibration of its probabilities,
 and each study source's calibrated accuracy against its claim.
 
-Every figure over decisions is computed by the database (``SUM``, ``AVG``,
+Every sum over decisions is computed by the database (``SUM``, ``AVG``,
 ``COUNT``, ``GROUP BY``) over the outcome rows in force and the
 ``OutcomeForecast`` rows stored when each outcome was recorded, so the number
-of queries does not grow with the number of decisions. Python loops only over
-the (few) bins, distinct probabilities and sources.
+of queries does not grow with the number of decisions. The forecasts are read
+once, grouped by distinct probability; the calibration figures follow from
+those groups in Python (:func:`calibration_from_groups`), which loops only
+over the (few) distinct probabilities, bins and sources.
 
 Calibration of binary forecasts: every branch of every chance node on a
 realised path is one forecast ``p`` with outcome 1 if that branch happened,
@@ -20,8 +22,8 @@ from __future__ import annotations
 import datetime as dt
 from typing import Any
 
-from django.db.models import Avg, Count, ExpressionWrapper, F, FloatField, Sum, Value
-from django.db.models.functions import Floor, Least, Round
+import numpy as np
+from django.db.models import Avg, Count, Exists, OuterRef, Sum
 
 from decisions.models import Outcome, OutcomeForecast, Role, StudyRecord, StudySource, Team
 from decisions.services.access import require_role, visible_teams
@@ -29,9 +31,11 @@ from decisions.services.errors import InvalidInput, NotFoundError
 from valuation.errors import ModelValidationError
 from valuation.reliability import Record, calibrate
 
-__all__ = ["DEFAULT_BINS", "portfolio", "resolve_team"]
+__all__ = ["DEFAULT_BINS", "MAX_RECENT", "calibration_from_groups", "portfolio", "resolve_team"]
 
 DEFAULT_BINS = 10
+#: Most outcomes listed by ``portfolio(recent=...)``: a page of them, not the whole table.
+MAX_RECENT = 1000
 _EVERY_ROLE = [r.value for r in Role]
 
 
@@ -50,62 +54,127 @@ def resolve_team(user, team_id) -> Team:
         raise NotFoundError("team: not found", location="team") from None
 
 
-def portfolio(user, team, *, bins: int = DEFAULT_BINS) -> dict[str, Any]:
-    """Portfolio figures of ``team`` for a member of it (see the module notes)."""
+def portfolio(user, team, *, bins: int = DEFAULT_BINS, recent: int = 0) -> dict[str, Any]:
+    """Portfolio figures of ``team`` for a member of it (see the module notes).
+
+    With ``recent`` > 0 the answer also holds ``"recent"``: the ``recent`` most
+    recent outcomes in force, oldest first, and the sums of the earlier ones
+    (see :func:`_recent`), for a page that lists outcomes with running totals.
+    """
     team_id = getattr(team, "pk", team)
     require_role(user, team_id, _EVERY_ROLE, "see the portfolio")
     if isinstance(bins, bool) or not isinstance(bins, int) or not 1 <= bins <= 100:
         raise InvalidInput(f"must be a whole number from 1 to 100, got {bins!r}", location="bins")
-    current = Outcome.objects.filter(decision__team_id=team_id, superseded_by__isnull=True)
-
+    if isinstance(recent, bool) or not isinstance(recent, int) or not 0 <= recent <= MAX_RECENT:
+        raise InvalidInput(f"must be a whole number from 0 to {MAX_RECENT}, got {recent!r}",
+                           location="recent")
+    current = _in_force(team_id)
     # Sums per currency: adding euros to pounds would be meaningless.
+    sums = list(current.values("currency").annotate(
+        decisions=Count("decision_id", distinct=True), outcomes=Count("id"),
+        expected=Sum("expected_value"), realised=Sum("realised_value"),
+        mean_path_probability=Avg("path_probability"),
+    ).order_by("currency"))
     totals = [
         {"currency": row["currency"], "decisions": row["decisions"],
          "expected": row["expected"], "realised": row["realised"],
          "realised_minus_expected": row["realised"] - row["expected"],
          "mean_probability_of_what_happened": row["mean_path_probability"]}
-        for row in current.values("currency").annotate(
-            decisions=Count("decision_id", distinct=True), expected=Sum("expected_value"),
-            realised=Sum("realised_value"), mean_path_probability=Avg("path_probability"),
-        ).order_by("currency")
+        for row in sums
     ]
+    # One GROUP BY over the forecasts, by distinct probability: every calibration
+    # figure follows from (p, how many, how many happened), so the database reads
+    # the forecast rows once instead of once per figure.
+    groups = [(row["probability"], row["k"], row["hits"]) for row in
+              OutcomeForecast.objects.filter(outcome__in=current.values("pk"))
+              .values("probability").annotate(k=Count("id"), hits=Sum("happened"))
+              .order_by()]
+    out = {"team": team_id, "totals": totals, "calibration": calibration_from_groups(groups, bins),
+           "sources": _sources(team_id),
+           "caution": ("These figures are model outputs resting on stated assumptions; weigh "
+                       "them with professional judgment and your organisation's own rules.")}
+    if recent:
+        out["recent"] = _recent(current, sums, recent)
+    return out
 
-    forecasts = OutcomeForecast.objects.filter(outcome__in=current.values("pk"))
-    sq_error = ExpressionWrapper((F("probability") - F("happened")) * (F("probability") -
-                                                                      F("happened")),
-                                 output_field=FloatField())
-    overall = forecasts.aggregate(n=Count("id"), brier=Avg(sq_error), base=Avg("happened"))
-    # floor(p * bins) puts a forecast on an edge in the bin above it; rounding to 9
-    # places first keeps 0.3 * 10 = 3.0000000000000004 from drifting (as the core does).
-    bin_expr = Least(Floor(Round(F("probability") * Value(float(bins)), 9)),
-                     Value(float(bins - 1)), output_field=FloatField())
-    by_bin = {
-        int(row["bin"]): row
-        for row in forecasts.annotate(bin=bin_expr).values("bin").annotate(
-            count=Count("id"), mean_forecast=Avg("probability"), observed=Avg("happened"),
-        ).order_by("bin")
-    }
-    table = []
-    for b in range(bins):
-        row = by_bin.get(b)
-        table.append({"lower": b / bins, "upper": (b + 1) / bins,
-                      "count": row["count"] if row else 0,
-                      "mean_forecast": row["mean_forecast"] if row else None,
-                      "observed_frequency": row["observed"] if row else None})
-    n = overall["n"]
-    calibration: dict[str, Any] = {"forecasts": n, "brier": overall["brier"], "table": table}
-    if n:
-        base = overall["base"]
-        distinct = list(forecasts.values("probability").annotate(k=Count("id"),
-                                                                 o=Avg("happened")))
-        calibration["reliability"] = sum(r["k"] * (r["probability"] - r["o"]) ** 2
-                                         for r in distinct) / n
-        calibration["resolution"] = sum(r["k"] * (r["o"] - base) ** 2 for r in distinct) / n
-        calibration["uncertainty"] = base * (1.0 - base)
-    return {"team": team_id, "totals": totals, "calibration": calibration,
-            "sources": _sources(team_id),
-            "caution": ("These figures are model outputs resting on stated assumptions; weigh "
-                        "them with professional judgment and your organisation's own rules.")}
+
+def _in_force(team_id: int):
+    """The team's outcomes that no later row supersedes.
+
+    ``NOT EXISTS`` rather than Django's ``superseded_by__isnull`` (a LEFT JOIN
+    ... IS NULL on the superseding row's id): PostgreSQL cannot tell that the
+    join leaves that id NULL only where no row matched, estimates one row in
+    force, and plans nested loops over every outcome; ``NOT EXISTS`` becomes a
+    hash anti-join there, and an index lookup per row on SQLite as before.
+    """
+    superseding = Outcome.objects.filter(supersedes=OuterRef("pk"))
+    return Outcome.objects.filter(~Exists(superseding), decision__team_id=team_id)
+
+
+def calibration_from_groups(groups: list[tuple[float, int, float]], bins: int) -> dict[str, Any]:
+    """Brier score, Murphy's partition and the binned table from grouped forecasts.
+
+    ``groups`` holds one ``(probability, forecasts, happened)`` per distinct
+    forecast probability: how many forecasts gave it and how many of those
+    happened. The figures equal ``valuation.forecast_scores``' over the
+    forecasts one by one (tested): the Brier score sums ``(p - 1)^2`` over the
+    ``happened`` and ``p^2`` over the others; Murphy's partition groups by
+    distinct value already; the bins use the core's rule.
+    """
+    n = sum(k for _, k, _ in groups)
+    table = [{"lower": b / bins, "upper": (b + 1) / bins, "count": 0, "mean_forecast": None,
+              "observed_frequency": None} for b in range(bins)]
+    calibration: dict[str, Any] = {"forecasts": n, "brier": None, "table": table}
+    if not n:
+        return calibration
+    p = np.array([g[0] for g in groups], dtype=float)
+    k = np.array([g[1] for g in groups], dtype=float)
+    hits = np.array([g[2] for g in groups], dtype=float)
+    # The bin of each distinct probability by valuation.forecast_scores.calibration_table's
+    # own rule (rounding to 9 places keeps 0.3 * 10 = 3.0000000000000004 in bin 3).
+    index = np.clip(np.floor(np.round(p * bins, 9)).astype(int), 0, bins - 1)
+    count = np.bincount(index, weights=k, minlength=bins)
+    sum_p = np.bincount(index, weights=k * p, minlength=bins)
+    sum_hits = np.bincount(index, weights=hits, minlength=bins)
+    for b, row in enumerate(table):
+        if count[b]:
+            row.update(count=int(count[b]), mean_forecast=float(sum_p[b] / count[b]),
+                       observed_frequency=float(sum_hits[b] / count[b]))
+    base = float(hits.sum() / n)
+    observed = hits / k
+    calibration.update(
+        brier=float((hits * (p - 1.0) ** 2 + (k - hits) * p ** 2).sum() / n),
+        reliability=float((k * (p - observed) ** 2).sum() / n),
+        resolution=float((k * (observed - base) ** 2).sum() / n),
+        uncertainty=base * (1.0 - base))
+    return calibration
+
+
+def _recent(current, sums: list[dict[str, Any]], limit: int) -> dict[str, Any]:
+    """The ``limit`` most recent outcomes in force (oldest first), and the earlier ones' sums.
+
+    Only the columns a listing shows are read (not the recorded path and walk).
+    The earlier outcomes' sums per currency are the totals minus the listed
+    rows, so no second pass over the team's outcomes; ``earlier`` maps a
+    currency to ``(expected, realised)`` and holds only currencies with earlier
+    outcomes. The totals and the listing are two statements: an outcome
+    recorded between them shifts the earlier sums by that outcome until the
+    next reading (``earlier_count`` never goes below 0).
+    """
+    rows = list(current.select_related("decision")
+                .only("recorded_at", "currency", "expected_value", "realised_value",
+                      "path_probability", "decision__title")
+                .order_by("-recorded_at", "-id")[:limit])[::-1]
+    earlier: dict[str, tuple[float, float]] = {}
+    hidden = 0
+    for row in sums:
+        mine = [o for o in rows if o.currency == row["currency"]]
+        count = row["outcomes"] - len(mine)
+        if count > 0:
+            hidden += count
+            earlier[row["currency"]] = (row["expected"] - sum(o.expected_value for o in mine),
+                                        row["realised"] - sum(o.realised_value for o in mine))
+    return {"outcomes": rows, "earlier": earlier, "earlier_count": hidden}
 
 
 def _sources(team_id: int) -> list[dict[str, Any]]:

@@ -7,7 +7,9 @@ formats (``money``, ``prob``, ``pct``) and draws the shared charts of
 
 from __future__ import annotations
 
+from django.urls import reverse
 from django.utils.safestring import mark_safe
+from django.utils.timezone import template_localtime
 
 from decisions.drawings.charts import accuracy_chart, calibration_chart, outcomes_chart
 from decisions.drawings.render import to_svg
@@ -174,7 +176,12 @@ def portfolio_view(data: dict, outcomes: list, earlier: dict | None = None,
         sums[1] += o.realised_value
         if n < listed_from:
             continue
-        history.append({"outcome": o, "date": o.recorded_at, "decision": o.decision,
+        # Link and date made here, once per row: the page's over-time table has up to
+        # HISTORY_ROWS rows, and a {% url %} tag and a date filter in each were most
+        # of the page's rendering time.
+        history.append({"date": template_localtime(o.recorded_at).date().isoformat(),
+                        "url": reverse("web-review", args=[o.decision.pk]),
+                        "title": o.decision.title,
                         "expected": money(o.expected_value, o.currency),
                         "realised": money(o.realised_value, o.currency),
                         "difference": money(o.realised_value - o.expected_value, o.currency),

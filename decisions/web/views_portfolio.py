@@ -1,18 +1,18 @@
 """The team's portfolio: expected vs realised over time, calibration, sources compared.
 
-The sums, the calibration table and the sources' figures are the service's
-(``decisions.services.portfolio``, computed by the database); the page adds
-the outcomes in force one by one, oldest first, for the "over time" view.
+The sums, the calibration table, the sources' figures and the most recent
+outcomes in force with the sums of the earlier ones are the service's
+(``decisions.services.portfolio``, computed by the database, in a number of
+queries that does not grow with the team); the page lists those outcomes,
+oldest first, with running totals, for the "over time" view.
 """
 
 from __future__ import annotations
 
 from django.contrib.auth.decorators import login_required
-from django.db.models import Count, Sum
 from django.http import Http404
 from django.shortcuts import render
 
-from decisions.models import Outcome
 from decisions.services import portfolio as svc
 from decisions.services.access import visible_teams
 from decisions.services.errors import DomainError
@@ -41,17 +41,8 @@ def portfolio(request):
     except DomainError:  # NotFoundError, or a team id that is not a number
         raise Http404("no such team among yours") from None
     context["team"] = team
-    data = svc.portfolio(request.user, team, bins=context["bins"])
-    # The team was just checked to be one of the user's: its most recent outcomes in
-    # force, oldest first, and the sums of the earlier ones (for the running totals),
-    # in two queries whatever the team's size.
-    in_force = Outcome.objects.filter(decision__team_id=team.pk, superseded_by__isnull=True)
-    rows = list(in_force.select_related("decision")
-                .order_by("-recorded_at", "-id")[:HISTORY_ROWS])[::-1]
-    earlier_rows = in_force.exclude(pk__in=[o.pk for o in rows])
-    sums = list(earlier_rows.values("currency").order_by("currency").annotate(
-        expected=Sum("expected_value"), realised=Sum("realised_value"), count=Count("id")))
-    earlier = {row["currency"]: (row["expected"], row["realised"]) for row in sums}
-    hidden = sum(row["count"] for row in sums)
-    context["p"] = portfolio_view(data, rows, earlier, hidden)
+    data = svc.portfolio(request.user, team, bins=context["bins"], recent=HISTORY_ROWS)
+    recent = data["recent"]
+    context["p"] = portfolio_view(data, recent["outcomes"], recent["earlier"],
+                                  recent["earlier_count"])
     return render(request, "web/portfolio.html", context)

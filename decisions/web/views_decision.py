@@ -148,17 +148,31 @@ def _back(decision, anchor: str = ""):
     return redirect(reverse("web-decision", args=[decision.pk]) + (f"#{anchor}" if anchor else ""))
 
 
+def _act(request, decision, action, success: str, anchor: str = ""):
+    """Run a service action; its refusal shows as messages, its success as ``success``."""
+    try:
+        action()
+    except DomainError as exc:
+        _show_problems(request, exc)
+    else:
+        messages.success(request, success)
+    return _back(decision, anchor)
+
+
+def _attach_problems(form, exc: DomainError) -> None:
+    """A service's refusal beside the form field it names (unnamed ones above the form)."""
+    for location, message in exc.problems:
+        field = location if location in form.fields else None
+        form.add_error(field, f"{location}: {message}" if location and not field else message)
+
+
 @login_required
 @require_POST
 def submit(request, pk):
     decision = queries.decision_for(request.user, pk)
-    try:
-        svc.submit_version(decision.pk, actor=request.user, if_match=request.POST.get("etag"))
-    except DomainError as exc:
-        _show_problems(request, exc)
-    else:
-        messages.success(request, "Submitted for sign-off.")
-    return _back(decision)
+    return _act(request, decision, lambda: svc.submit_version(
+        decision.pk, actor=request.user, if_match=request.POST.get("etag")),
+        "Submitted for sign-off.")
 
 
 @login_required
@@ -175,9 +189,7 @@ def sign(request, pk):
                      role=role, meaning=data["meaning"], reason=data["reason"],
                      if_match=data["etag"])
     except DomainError as exc:
-        for location, message in exc.problems:
-            field = location if location in form.fields else None
-            form.add_error(field, f"{location}: {message}" if location and not field else message)
+        _attach_problems(form, exc)
         return detail(request, pk, sign_form=form, status=exc.status)
     verb = "approved" if data["meaning"] == Meaning.APPROVE else "rejected"
     messages.success(request, f"You {verb} version {data['version']}.")
@@ -205,9 +217,7 @@ def strategy(request, pk):
             justification=data["justification"],
             value_given_up=data["value_given_up"] if choice == "own" else None)
     except DomainError as exc:
-        for location, message in exc.problems:
-            field = location if location in form.fields else None
-            form.add_error(field, f"{location}: {message}" if location and not field else message)
+        _attach_problems(form, exc)
         return detail(request, pk, strategy_form=form, status=exc.status)
     messages.success(request, "Plan recorded. Commit the decision when the team is ready.")
     return _back(decision, "plan")
@@ -217,13 +227,9 @@ def strategy(request, pk):
 @require_POST
 def commit(request, pk):
     decision = queries.decision_for(request.user, pk)
-    try:
-        svc.commit_decision(decision.pk, actor=request.user, if_match=request.POST.get("etag"))
-    except DomainError as exc:
-        _show_problems(request, exc)
-    else:
-        messages.success(request, "Committed: the recorded plan is now in force.")
-    return _back(decision, "plan")
+    return _act(request, decision, lambda: svc.commit_decision(
+        decision.pk, actor=request.user, if_match=request.POST.get("etag")),
+        "Committed: the recorded plan is now in force.", "plan")
 
 
 @login_required
@@ -232,14 +238,9 @@ def close(request, pk):
     decision = queries.decision_for(request.user, pk)
     form = CloseForm(request.POST)
     form.is_valid()
-    try:
-        svc.close_decision(decision.pk, actor=request.user, if_match=request.POST.get("etag"),
-                           note=form.cleaned_data.get("note", ""))
-    except DomainError as exc:
-        _show_problems(request, exc)
-    else:
-        messages.success(request, "Closed.")
-    return _back(decision)
+    return _act(request, decision, lambda: svc.close_decision(
+        decision.pk, actor=request.user, if_match=request.POST.get("etag"),
+        note=form.cleaned_data.get("note", "")), "Closed.")
 
 
 @login_required
@@ -252,11 +253,6 @@ def policy(request, pk):
             for error in errors:
                 messages.error(request, f"{name}: {error}")
         return _back(decision, "signoff")
-    try:
-        svc.set_policy(decision.pk, actor=request.user, if_match=form.cleaned_data["etag"],
-                       requirements=form.requirements())
-    except DomainError as exc:
-        _show_problems(request, exc)
-    else:
-        messages.success(request, "Sign-off policy saved.")
-    return _back(decision, "signoff")
+    return _act(request, decision, lambda: svc.set_policy(
+        decision.pk, actor=request.user, if_match=form.cleaned_data["etag"],
+        requirements=form.requirements()), "Sign-off policy saved.", "signoff")

@@ -316,30 +316,31 @@ def _root_values(tree: FlatTree, prob_rows: np.ndarray, risk_tolerance=None) -> 
 def learning_values(tree: FlatTree, nodes, base: Rollback, risk_tolerance=None) -> list[float]:
     """``learning_value`` of several chance nodes at once: one batched rollback for all
     their revealed outcomes instead of one rollback per outcome."""
-    rows, owners, weights = [], [], []
-    for k, node in enumerate(nodes):
-        branches = list(_branches(tree, node))
-        for b in branches:
-            p = float(tree.prob[b])
-            if p <= 0:
-                continue
-            forced = tree.prob.copy()
-            forced[branches] = 0.0
-            forced[b] = 1.0
-            rows.append(forced)
-            owners.append(k)
-            weights.append(p)
-    if not rows:
+    nodes = np.asarray(nodes, dtype=np.int64)
+    if not len(nodes):
         return []
-    revealed = _root_values(tree, np.vstack(rows), risk_tolerance)
-    owners_a, weights_a = np.asarray(owners), np.asarray(weights)
+    first, count = tree.first_branch[nodes], tree.branch_count[nodes]
+    # One row per revealed outcome (node k, branch b of positive probability): the
+    # tree's probabilities with node k's branches set to 0 and branch b to 1.
+    branch = _spans(first, count)
+    live = tree.prob[branch] > 0
+    owners, chosen = np.repeat(np.arange(len(nodes)), count)[live], branch[live]
+    weights = tree.prob[chosen]
+    rows = np.repeat(tree.prob[None, :], len(chosen), axis=0)
+    per_row = count[owners]
+    rows[np.repeat(np.arange(len(chosen)), per_row), _spans(first[owners], per_row)] = 0.0
+    rows[np.arange(len(chosen)), chosen] = 1.0
+    revealed = _root_values(tree, rows, risk_tolerance)
+    if risk_tolerance:
+        with_info = [certainty_equivalent(revealed[owners == k], weights[owners == k],
+                                          risk_tolerance) for k in range(len(nodes))]
+    else:
+        with_info = np.bincount(owners, weights=weights * revealed, minlength=len(nodes))
     base_value = float(base.value[tree.root])
-    out = []
-    for k in range(len(nodes)):
-        mine = owners_a == k
-        if risk_tolerance:
-            with_info = certainty_equivalent(revealed[mine], weights_a[mine], risk_tolerance)
-        else:
-            with_info = float(np.dot(revealed[mine], weights_a[mine]))
-        out.append(max(0.0, with_info - base_value))
-    return out
+    return [max(0.0, float(v) - base_value) for v in with_info]
+
+
+def _spans(first: np.ndarray, count: np.ndarray) -> np.ndarray:
+    """``first[i], first[i] + 1, ..., first[i] + count[i] - 1`` for every i, end to end."""
+    offsets = np.cumsum(count) - count
+    return np.repeat(first - offsets, count) + np.arange(int(count.sum()))

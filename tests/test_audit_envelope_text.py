@@ -1,7 +1,7 @@
 """The chain walk's direct envelope text equals the canonical JSON that append_event hashes.
 
-``decisions.services.audit._envelope_text`` writes an event envelope's canonical form
-by hand for speed (verify_audit over a million events); the reference is the project's
+``decisions.services.audit_envelope.envelope_text`` writes an event envelope's canonical
+form by hand for speed (verify_audit over a million events); the reference is the project's
 own ``valuation.canonical.canonical_json`` of ``event_envelope(...)``, which
 ``append_event`` hashes. Inputs with odd types are refused (None) so that the walk falls
 back to the reference.
@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import pytest
 
-from decisions.services.audit import _envelope_text, event_envelope
+from decisions.services.audit_envelope import envelope_text, event_envelope
 from valuation.canonical import canonical_json
 
 BASE = {"seq": 1, "created_at": "2026-12-01T09:30:00.000001+00:00", "actor_id": 7,
@@ -30,7 +30,7 @@ BASE = {"seq": 1, "created_at": "2026-12-01T09:30:00.000001+00:00", "actor_id": 
 ])
 def test_direct_text_equals_canonical_json(change):
     envelope = event_envelope(**{**BASE, **change})
-    text = _envelope_text(**{**BASE, **change})
+    text = envelope_text(**{**BASE, **change})
     assert text is not None
     assert text.encode("utf-8") == canonical_json(envelope)
 
@@ -39,4 +39,4 @@ def test_direct_text_equals_canonical_json(change):
     {"seq": 1.0}, {"seq": True}, {"actor_id": 7.0}, {"actor_id": "7"}, {"object_id": 12},
 ])
 def test_odd_types_are_left_to_the_full_encoder(change):
-    assert _envelope_text(**{**BASE, **change}) is None
+    assert envelope_text(**{**BASE, **change}) is None

@@ -52,6 +52,24 @@ def test_a_malformed_checkpoint_is_refused(db, tmp_path):
         call_command("verify_audit", "--checkpoint", str(bad))
 
 
+@pytest.mark.parametrize(("option", "value"), [("--processes", "0"), ("--slice-size", "-5")])
+def test_verify_audit_refuses_walk_settings_below_one(db, option, value):
+    from django.core.management.base import CommandError
+
+    with pytest.raises(CommandError, match=rf"^{option}: must be a whole number >= 1, got {value}$"):
+        call_command("verify_audit", option, value)
+
+
+def test_verify_audit_in_slices_reports_the_same_break(draft, capsys):
+    with triggers_off(), connection.cursor() as cur:
+        cur.execute("UPDATE decisions_auditevent SET actor_username = 'mallory' WHERE seq = 4")
+    with pytest.raises(SystemExit):
+        call_command("verify_audit", "--processes", "2", "--slice-size", "3")
+    assert capsys.readouterr().err.strip() == ("Audit chain BROKEN after 3 good event(s): "
+                                               "event #4: hash does not match its content "
+                                               "(the event was altered)")
+
+
 def test_export_bundle_verifies_elsewhere(submitted, tmp_path):
     out = tmp_path / "bundle.json"
     call_command("export_decision", str(submitted.pk), "-o", str(out))

@@ -2,22 +2,21 @@
 
 Every state change calls :func:`append_event` inside its own
 ``transaction.atomic()`` block, so the change and its event commit or roll
-back together. The acting user is always an explicit argument.
+back together. The acting user is always an explicit argument. The walk along
+the chain lives in ``audit_verify`` (re-exported here, where callers find it).
 """
 
 from __future__ import annotations
 
 import hashlib
 import json
-from collections.abc import Iterable
-from dataclasses import dataclass, field
-from json.encoder import encode_basestring as _json_string
-from typing import Any
 
 from django.db import transaction
 from django.utils import timezone
 
 from decisions.models import GENESIS_HASH, AuditEvent, ChainHead
+from decisions.services.audit_envelope import event_envelope
+from decisions.services.audit_verify import ChainReport, verify_chain, verify_events
 from valuation.canonical import canonical_json, sha256_hex
 
 __all__ = [
@@ -29,24 +28,6 @@ __all__ = [
     "verify_events",
     "verify_records",
 ]
-
-
-def event_envelope(
-    *, seq: int, created_at: str, actor_id: int | None, actor_username: str, action: str,
-    object_type: str, object_id: str, payload_sha256: str, prev_hash: str,
-) -> dict[str, Any]:
-    """The fields an event's hash covers (its payload through the payload's own hash)."""
-    return {
-        "seq": seq,
-        "created_at": created_at,
-        "actor_id": actor_id,
-        "actor_username": actor_username,
-        "action": action,
-        "object_type": object_type,
-        "object_id": object_id,
-        "payload_sha256": payload_sha256,
-        "prev_hash": prev_hash,
-    }
 
 
 def append_event(*, actor, action: str, object_type: str, object_id, payload: dict) -> AuditEvent:
@@ -102,145 +83,6 @@ def append_event(*, actor, action: str, object_type: str, object_id, payload: di
     head.hash = event.hash
     head.save(update_fields=["seq", "hash"])
     return event
-
-
-@dataclass
-class ChainReport:
-    """Outcome of a walk along the chain."""
-
-    count: int = 0
-    head_seq: int = 0
-    head_hash: str = GENESIS_HASH
-    problems: list[str] = field(default_factory=list)
-
-    @property
-    def ok(self) -> bool:
-        return not self.problems
-
-    @property
-    def first_break(self) -> str | None:
-        return self.problems[0] if self.problems else None
-
-    def as_dict(self) -> dict[str, Any]:
-        return {"ok": self.ok, "events": self.count, "head_seq": self.head_seq,
-                "head_hash": self.head_hash, "first_break": self.first_break}
-
-
-_ENVELOPE_ARGS = ("seq", "created_at", "actor_id", "actor_username", "action", "object_type",
-                  "object_id", "payload_sha256", "prev_hash")
-#: The fields a walk along the chain reads, in the order ``_walk`` takes them.
-_WALK_FIELDS = ("seq", "created_at", "actor_id", "actor_username", "action", "object_type",
-                "object_id", "payload", "payload_canonical", "prev_hash", "hash")
-
-
-def _envelope_text(seq, created_at, actor_id, actor_username, action, object_type, object_id,
-                   payload_sha256, prev_hash) -> str | None:
-    """``canonical_json(event_envelope(...))`` as text, written out directly; None when a
-    field is not of the plain type this shortcut assumes (the caller then encodes fully).
-
-    A million envelopes go through ``verify_audit``: writing the nine fields in key order
-    with json's own string escaper takes a quarter of the time of a sorted dict encode.
-    tests/test_audit_envelope_text.py checks it against ``canonical_json``.
-    """
-    if type(seq) is not int or not (actor_id is None or type(actor_id) is int) or not all(
-            type(v) is str for v in (created_at, actor_username, action, object_type, object_id,
-                                     payload_sha256, prev_hash)):
-        return None
-    q = _json_string
-    return (f'{{"action":{q(action)},"actor_id":{"null" if actor_id is None else actor_id},'
-            f'"actor_username":{q(actor_username)},"created_at":{q(created_at)},'
-            f'"object_id":{q(object_id)},"object_type":{q(object_type)},'
-            f'"payload_sha256":{q(payload_sha256)},"prev_hash":{q(prev_hash)},"seq":{seq}}}')
-
-
-def verify_events(events: Iterable[Any]) -> ChainReport:
-    """Check links, sequence and hashes of events given in ascending ``seq`` order.
-
-    Stops at the first broken link (later links cannot be trusted after it).
-    ``events`` may be model instances or dicts with the same fields (an export).
-    """
-    def row(event):
-        if isinstance(event, dict):
-            return tuple(event.get(name) for name in _WALK_FIELDS)
-        return tuple(getattr(event, name) for name in _WALK_FIELDS)
-
-    return _walk(row(event) for event in events)
-
-
-def _walk(rows: Iterable[tuple]) -> ChainReport:
-    """``verify_events`` over tuples in ``_WALK_FIELDS`` order: the one loop both paths use.
-
-    A million events pass through here in ``verify_audit``, so the loop body is kept
-    to two JSON decodes, one JSON encode and two SHA-256 per event (no model instances).
-    """
-    report = ChainReport()
-    expected_seq, prev_hash = 1, GENESIS_HASH
-    sha256, loads = hashlib.sha256, json.loads
-    for (seq, created_at, actor_id, actor_username, action, object_type, object_id, payload,
-         canonical, event_prev, digest) in rows:
-        where = f"event #{seq}"
-        problem = None
-        if seq != expected_seq:
-            problem = (f"{where}: expected sequence number {expected_seq} "
-                       f"(an event is missing or out of order)")
-        elif event_prev != prev_hash:
-            problem = f"{where}: prev_hash does not match the hash of event #{expected_seq - 1}"
-        elif loads(canonical) != payload:
-            problem = f"{where}: payload differs from the canonical text that was hashed"
-        else:
-            fields = (seq, created_at if isinstance(created_at, str) else created_at.isoformat(),
-                      actor_id, actor_username, action, object_type, object_id,
-                      sha256(canonical.encode("utf-8")).hexdigest(), event_prev)
-            text = _envelope_text(*fields)
-            # an export with odd types: the full canonical form decides
-            encoded = canonical_json(event_envelope(**dict(zip(_ENVELOPE_ARGS, fields, strict=True)))) \
-                if text is None else text.encode("utf-8")
-            if sha256(encoded).hexdigest() != digest:
-                problem = f"{where}: hash does not match its content (the event was altered)"
-        if problem:
-            report.problems.append(problem)
-            break
-        report.count += 1
-        expected_seq, prev_hash = seq + 1, digest
-    # the last good event (sequence numbers were checked to run 1, 2, 3...)
-    report.head_seq, report.head_hash = expected_seq - 1, prev_hash
-    return report
-
-
-def verify_chain(*, checkpoint: dict | None = None, chunk_size: int = 2000) -> ChainReport:
-    """Walk the stored chain (streamed, never loaded whole) and check its head.
-
-    ``checkpoint`` is ``{"seq": n, "hash": h}`` written earlier by
-    ``audit_checkpoint``: the event with that sequence number must still exist
-    with that hash, which catches truncation and a wholesale rewrite that the
-    links alone cannot.
-    """
-    # Plain tuples, streamed in chunks: no model instance per event, memory flat.
-    rows = AuditEvent.objects.order_by("seq").values_list(*_WALK_FIELDS)
-    report = _walk(rows.iterator(chunk_size=chunk_size))
-    if not report.ok:
-        return report
-    head = ChainHead.objects.filter(pk=1).first()
-    if head is None:
-        report.problems.append("chain head: the head row is missing")
-    elif (head.seq, head.hash) != (report.head_seq, report.head_hash):
-        report.problems.append(
-            f"chain head: records #{head.seq} {head.hash[:12]}… but the last event is "
-            f"#{report.head_seq} {report.head_hash[:12]}… (events were removed or added)"
-        )
-    if checkpoint is not None and report.ok:
-        seq, expected = checkpoint["seq"], checkpoint["hash"]
-        stored = AuditEvent.objects.filter(seq=seq).values_list("hash", flat=True).first()
-        if seq > 0 and stored is None:
-            report.problems.append(
-                f"checkpoint: event #{seq} is missing (the chain was truncated)"
-            )
-        elif seq > 0 and stored != expected:
-            report.problems.append(
-                f"checkpoint: event #{seq} has hash {stored[:12]}…, the checkpoint recorded "
-                f"{expected[:12]}… (the chain was rewritten)"
-            )
-    return report
 
 
 def verify_records(*, chunk_size: int = 500) -> list[str]:

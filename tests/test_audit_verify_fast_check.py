@@ -164,3 +164,38 @@ def test_an_event_hashed_in_the_writers_format_with_one_field_changed_does_not()
     _write_golden_event(action="decision.close")
     assert verify_chain().first_break == \
         "event #1: hash does not match its content (the event was altered)"
+
+
+# Doubles whose shortest decimal form is not their exact value (common practice: a
+# double holds 53 bits; 1e300 is not the integer 10**300). PostgreSQL's jsonb copy
+# reads them back as those exact integers.
+LARGE_FLOATS = {"huge": 1e300, "large": 1.2345678901234567e25, "negative": -3.0e200}
+
+
+def test_large_floats_in_a_payload_verify(people):
+    with transaction.atomic():
+        append_event(actor=None, action="test.large", object_type="decision", object_id="9",
+                     payload=LARGE_FLOATS)
+    report = verify_chain()
+    assert report.ok, report.first_break
+    assert verify_chain(slice_size=2).as_dict() == report.as_dict()
+
+
+def test_a_large_float_changed_in_the_copy_is_caught(people):
+    with transaction.atomic():
+        event = append_event(actor=None, action="test.large", object_type="decision",
+                             object_id="9", payload=LARGE_FLOATS)
+    with triggers_off(), connection.cursor() as cur:
+        cur.execute("UPDATE decisions_auditevent SET payload = %s WHERE seq = %s",
+                    [json.dumps({**LARGE_FLOATS, "huge": 2e300}), event.seq])
+    assert verify_chain().first_break == \
+        f"event #{event.seq}: payload differs from the canonical text that was hashed"
+
+
+@pytest.mark.parametrize(("a", "b", "same"), [
+    (1e300, 10**300, True), ({"x": [1e300]}, {"x": [10**300]}, True), (2.0, 2, True),
+    (1e300, 10**300 + 10**290, False), (1e308, 10**400, False), ({"x": 1}, {"y": 1}, False),
+    ([1.5], [1.5, 2], False), ("1e300", 1e300, False), (True, 1, True),
+])
+def test_numbers_compare_as_doubles(a, b, same):
+    assert audit_verify._same_as_doubles(a, b) is same

@@ -51,10 +51,6 @@ CONTENT_SECURITY_POLICY = (
     "img-src 'self' data:; object-src 'none'; base-uri 'self'; form-action 'self'; "
     "frame-ancestors 'none'"
 )
-# The API documentation page (decisions/api/views_extra.py) builds itself with an
-# inline <script> that contains no user input; until that script moves to a static
-# file it alone may run inline script. Every other page is held to script-src 'self'.
-INLINE_SCRIPT_PATHS = frozenset({"/api/docs/"})
 
 # Connection strings and libpq messages can carry credentials: never log them.
 _SECRETS = [
@@ -116,10 +112,7 @@ class SecurityHeadersMiddleware:
 
     def __call__(self, request):
         response = self.get_response(request)
-        policy = CONTENT_SECURITY_POLICY
-        if request.path in INLINE_SCRIPT_PATHS:
-            policy = policy.replace("script-src 'self'", "script-src 'self' 'unsafe-inline'")
-        response.headers.setdefault("Content-Security-Policy", policy)
+        response.headers.setdefault("Content-Security-Policy", CONTENT_SECURITY_POLICY)
         return response
 
 

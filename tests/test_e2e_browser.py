@@ -227,3 +227,21 @@ def test_decision_from_model_to_commit_in_the_browser(live_server, browser, sett
     assert decision.versions.count() == 2
     for session in (ana, olga, fred, omar):
         session.close()
+
+
+@pytest.mark.django_db(transaction=True)
+def test_api_documentation_page_builds_itself_under_the_strict_policy(live_server, browser):
+    # The page's script is a static file: the browser enforces script-src 'self' and
+    # still lists the operations; a blocked script would leave "Loading the schema…".
+    context = browser.new_context()
+    page = context.new_page()
+    refused = []
+    page.on("console", lambda msg: refused.append(msg.text)
+            if "Content Security Policy" in msg.text else None)
+    try:
+        page.goto(f"{live_server.url}/api/docs/")
+        expect(page.get_by_role("heading", name="/api/evaluate/")).to_be_visible()
+        expect(page.locator("#ops")).not_to_contain_text("Loading the schema")
+        assert refused == []
+    finally:
+        context.close()

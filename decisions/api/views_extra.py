@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from django.contrib.auth import get_user_model
 from django.http import HttpResponse
+from django.templatetags.static import static
 from django.urls import reverse
 from django.utils.html import escape
 from drf_spectacular.types import OpenApiTypes
@@ -123,46 +124,15 @@ them with professional judgment and your organisation's own approval rules.</p>
 <p>Machine-readable schema: <a href="{schema}">{schema}</a> (OpenAPI 3). Authenticate with
 <code>Authorization: Token …</code> from <code>POST /api/token/</code> or a signed-in session.
 Changes to a decision need <code>If-Match</code> with its <code>ETag</code>.</p>
-<div id="ops">Loading the schema…</div>
-<script>
-fetch({schema_json}, {{headers: {{"Accept": "application/json"}}}})
-  .then(function (r) {{ return r.json(); }})
-  .then(function (schema) {{
-    var root = document.getElementById("ops"); root.textContent = "";
-    Object.keys(schema.paths).sort().forEach(function (path) {{
-      var h = document.createElement("h2"); h.textContent = path; root.appendChild(h);
-      var item = schema.paths[path];
-      Object.keys(item).forEach(function (method) {{
-        var op = item[method], div = document.createElement("div"); div.className = "op";
-        var m = document.createElement("span"); m.className = "m";
-        m.textContent = method.toUpperCase(); div.appendChild(m);
-        div.appendChild(document.createTextNode(op.summary || op.operationId || ""));
-        if (op.description) {{ var p = document.createElement("p");
-          p.textContent = op.description; div.appendChild(p); }}
-        (op.parameters || []).forEach(function (prm) {{
-          var p = document.createElement("div"); p.className = "note";
-          p.textContent = prm.in + " " + prm.name + (prm.required ? " (required)" : "") +
-            (prm.description ? ": " + prm.description : "");
-          div.appendChild(p); }});
-        if (op.requestBody) {{ var pre = document.createElement("pre");
-          pre.textContent = JSON.stringify(op.requestBody.content, null, 1).slice(0, 1500);
-          div.appendChild(pre); }}
-        var codes = document.createElement("div"); codes.className = "note";
-        codes.textContent = "responses: " + Object.keys(op.responses || {{}}).join(", ");
-        div.appendChild(codes); root.appendChild(div);
-      }});
-    }});
-  }})
-  .catch(function (e) {{ document.getElementById("ops").textContent =
-    "Could not load the schema: " + e; }});
-</script></body></html>"""
+<div id="ops" data-schema="{schema}">Loading the schema…</div>
+<script src="{script}"></script></body></html>"""
 
 
 def docs_page(request):
     """API documentation rendered in the browser from our own schema (no CDN assets)."""
     schema = reverse("api-schema") + "?format=json"
     html = _DOCS_PAGE.format(title="Decision register API", schema=escape(schema),
-                             schema_json='"' + escape(schema) + '"')
+                             script=escape(static("decisions/api_docs.js")))
     return HttpResponse(html)
 
 

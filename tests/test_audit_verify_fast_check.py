@@ -192,10 +192,65 @@ def test_a_large_float_changed_in_the_copy_is_caught(people):
         f"event #{event.seq}: payload differs from the canonical text that was hashed"
 
 
-@pytest.mark.parametrize(("a", "b", "same"), [
-    (1e300, 10**300, True), ({"x": [1e300]}, {"x": [10**300]}, True), (2.0, 2, True),
+@pytest.mark.parametrize(("hashed", "copy", "same"), [
+    # storage differences that are not changes
+    (1e300, 10**300, True), ({"x": [1e300]}, {"x": [10**300]}, True), (2, 2.0, True),
+    ({"a": 1}, {"a": 1.0}, True), (0, -0.0, True), (1e20, 10**20, True),
+    # changes
     (1e300, 10**300 + 10**290, False), (1e308, 10**400, False), ({"x": 1}, {"y": 1}, False),
-    ([1.5], [1.5, 2], False), ("1e300", 1e300, False), (True, 1, True),
+    ([1.5], [1.5, 2], False), ("1e300", 1e300, False), (True, 1, False), (1, True, False),
+    (False, 0, False), ({"ok": True}, {"ok": 1}, False),
+    (9007199254740993, 9007199254740992.0, False), (2**53, float(2**53), False),
+    ([1], (1,), False), (None, 0, False), ("a", "b", False),
 ])
-def test_numbers_compare_as_doubles(a, b, same):
-    assert audit_verify._same_as_doubles(a, b) is same
+def test_the_copy_must_hold_what_the_canonical_text_holds_type_for_type(hashed, copy, same):
+    assert audit_verify._same_json(hashed, copy) is same
+
+
+def _tamper(sql: str, params) -> None:
+    with triggers_off(), connection.cursor() as cur:
+        cur.execute(sql, params)
+
+
+def _chain_of_three():
+    with transaction.atomic():
+        for n in range(3):
+            append_event(actor=None, action="test.plain", object_type="decision",
+                         object_id=str(n), payload={"n": n})
+
+
+def test_a_huge_tampered_sequence_number_is_reported_at_once(people):
+    # Slices are cut by the row count: a stored 10**15 must not mean 10**10 empty slices.
+    _chain_of_three()
+    last = AuditEvent.objects.order_by("-seq").values_list("seq", flat=True).first()
+    _tamper("UPDATE decisions_auditevent SET seq = %s WHERE seq = %s", [10**15, last])
+    report = verify_chain(slice_size=2)
+    assert report.first_break == (f"event #{10**15}: expected sequence number {last} "
+                                  "(an event is missing or out of order)")
+
+
+@pytest.mark.parametrize(("hashed", "changed"), [
+    ({"n": 9007199254740993}, {"n": 9007199254740992.0}),
+    ({"approved": 1, "flag": False}, {"approved": True, "flag": 0}),
+])
+def test_a_copy_changed_within_loose_equality_is_caught(people, hashed, changed):
+    with transaction.atomic():
+        event = append_event(actor=None, action="test.copy", object_type="decision",
+                             object_id="1", payload=hashed)
+    _tamper("UPDATE decisions_auditevent SET payload = %s WHERE seq = %s",
+            [json.dumps(changed), event.seq])
+    expected = f"event #{event.seq}: payload differs from the canonical text that was hashed"
+    assert verify_chain().first_break == expected
+    assert verify_events(AuditEvent.objects.order_by("seq")).first_break == expected
+
+
+@pytest.mark.skipif(connection.vendor != "sqlite", reason="SQLite stores any type in any column")
+def test_text_where_a_number_or_time_belongs_is_reported_not_raised(people):
+    _chain_of_three()
+    _tamper("UPDATE decisions_auditevent SET actor_id = 'null' WHERE seq = 2", [])
+    assert verify_chain().first_break == \
+        "event #2: hash does not match its content (the event was altered)"
+    _tamper("UPDATE decisions_auditevent SET actor_id = NULL, created_at = 'garbage' "
+            "WHERE seq = 2", [])
+    assert verify_chain().first_break == \
+        "event #2: hash does not match its content (the event was altered)"

@@ -15,7 +15,7 @@ import sys
 from pathlib import Path
 
 import pytest
-from django.db import connection
+from django.db import connection, connections
 
 from decisions.models import AuditEvent
 from decisions.services import audit_verify
@@ -83,6 +83,10 @@ def test_no_process_is_forked_inside_a_transaction(draft, monkeypatch):
         raise AssertionError("a process pool was started")
 
     monkeypatch.setattr(audit_verify.multiprocessing, "get_context", no_fork)
+    # Only the open transaction may stop the fork here, not SQLite's in-memory database.
+    monkeypatch.setattr(type(connections["default"]), "is_in_memory_db", lambda self: False,
+                        raising=False)
+    assert connection.in_atomic_block
     assert verify_chain(processes=2, slice_size=1).ok
 
 

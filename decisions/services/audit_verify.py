@@ -25,13 +25,13 @@ import os
 from collections.abc import Callable, Iterable, Iterator
 from contextlib import closing
 from dataclasses import dataclass, field
+from decimal import Decimal
 from functools import partial
 from itertools import chain
 from json.encoder import encode_basestring
 from typing import Any
 
 from django.db import DEFAULT_DB_ALIAS, connections
-from django.db.models import Max
 from django.db.models.expressions import Col
 
 from decisions.models import GENESIS_HASH, AuditEvent, ChainHead
@@ -50,6 +50,9 @@ WALK_FIELDS = ("seq", "created_at", "actor_id", "actor_username", "action", "obj
 SLICE_SIZE = 50_000
 #: Rows per keyset page: a few MB of rows at a time, whatever the chain's length.
 PAGE_SIZE = 5_000
+#: Integers from here on have no exact double; the canonical text writes an integral
+#: float below it as an integer (valuation.canonical).
+_SAFE_INTEGER = 2**53
 #: Processes for ``verify_audit``: measured on two cores only (tests/benchmarks/RESULTS.md);
 #: a larger machine may gain from more (``--processes``).
 DEFAULT_PROCESSES = min(2, os.cpu_count() or 1)
@@ -121,9 +124,10 @@ def verify_chain(*, checkpoint: dict | None = None, processes: int = 1,
                         ("page_size", page_size)):
         if type(value) is not int or value < 1:
             raise ValueError(f"{name}: must be a whole number >= 1, got {value!r}")
-    top = AuditEvent.objects.aggregate(top=Max("seq"))["top"]
-    # A row tampered with on SQLite can hold text here: one slice then reads everything.
-    bounds = _slice_bounds(top if isinstance(top, int) else 0, slice_size)
+    # Slices are cut by the number of rows, never by a stored sequence number: a single
+    # tampered number (10**18, or text on SQLite) would otherwise make millions of empty
+    # slices. The last slice is open above, so a row numbered beyond the count is read.
+    bounds = _slice_bounds(AuditEvent.objects.count(), slice_size)
     with closing(_slice_walks(bounds, processes, page_size)) as walks:
         report = _join(walks)
     if report.ok:
@@ -349,11 +353,18 @@ def _stored_content_check(connection) -> Callable[[tuple], str | None]:
         (seq, created_at, actor_id, actor_username, action, object_type, object_id, payload,
          canonical, prev_hash, digest) = row
         try:
+            if type(seq) is not int or not (actor_id is None or type(actor_id) is int):
+                raise TypeError  # what envelope_text would refuse: the reference decides
             copy, copy_end = scan(payload, 0)
             hashed, hashed_end = scan(canonical, 0)
             # The scanner stops after one value: the ends show that nothing follows it,
             # which is what json.loads (the reference) insists on.
-            if copy_end == len(payload) and hashed_end == len(canonical) and copy == hashed:
+            # ``==`` counts True as 1, so a body that may hold a boolean is compared type
+            # for type; the others need only ``==`` (exact between ints and floats).
+            maybe_bool = "true" in canonical or "false" in canonical or "true" in payload \
+                or "false" in payload
+            same = _same_json(hashed, copy) if maybe_bool else copy == hashed
+            if copy_end == len(payload) and hashed_end == len(canonical) and same:
                 stamp = (created_at.replace(" ", "T", 1) + "+00:00" if type(created_at) is str
                          else created_at.isoformat())
                 text = (f'{{"action":{q(action)},"actor_id":{"null" if actor_id is None else actor_id},'
@@ -365,7 +376,11 @@ def _stored_content_check(connection) -> Callable[[tuple], str | None]:
                     return None
         except (AttributeError, StopIteration, TypeError, ValueError):
             pass  # not JSON, or a value of a type or form the shortcut does not handle
-        return _reference_row_problem(orm_values(row))
+        try:
+            values = orm_values(row)
+        except (AttributeError, TypeError, ValueError):  # e.g. a time that is not a time
+            return f"event #{seq}: hash does not match its content (the event was altered)"
+        return _reference_row_problem(values)
 
     return problem
 
@@ -406,7 +421,7 @@ def _reference_problem(seq, created_at, actor_id, actor_username, action, object
     except (TypeError, ValueError):
         same = False  # canonical text that is not JSON: no copy can equal it
     else:
-        same = hashed == payload or _same_as_doubles(hashed, payload)
+        same = _same_json(hashed, payload)
     if not same:
         return f"{where}: payload differs from the canonical text that was hashed"
     try:
@@ -425,21 +440,24 @@ def _reference_problem(seq, created_at, actor_id, actor_username, action, object
     return None
 
 
-def _same_as_doubles(a: Any, b: Any) -> bool:
-    """Equal as JSON values whose numbers are doubles (as the canonical text writes them).
+def _same_json(hashed: Any, copy: Any) -> bool:
+    """The queryable copy holds what the canonical text holds, type for type.
 
-    PostgreSQL's jsonb keeps a number's decimal value, not its text: the queryable copy
-    of 1e300 reads back as the 301-digit integer, which Python does not count equal to
-    the float 1e300 (it compares the exact values). Read as doubles, they are the same.
+    Two differences are the storage's, not a change: the canonical text writes an
+    integral float below 2**53 as an integer (``1.0`` -> ``1``) while the copy keeps the
+    float; and PostgreSQL's jsonb keeps a number's exact decimal value, so the float
+    1e300 reads back as the 301-digit integer. Anything else must match exactly: a
+    boolean is never a number, an integer beyond 2**53 never a nearby float.
     """
-    if isinstance(a, dict) and isinstance(b, dict):
-        return a.keys() == b.keys() and all(_same_as_doubles(a[key], b[key]) for key in a)
-    if isinstance(a, list) and isinstance(b, list):
-        return len(a) == len(b) and all(map(_same_as_doubles, a, b))
-    kinds = {type(a), type(b)}
-    if float in kinds and kinds <= {int, float}:
-        try:
-            return float(a) == float(b)
-        except OverflowError:  # an integer beyond any double
-            return False
-    return a == b
+    if type(hashed) is dict:
+        return (type(copy) is dict and hashed.keys() == copy.keys()
+                and all(_same_json(hashed[key], copy[key]) for key in hashed))
+    if type(hashed) is list:
+        return (type(copy) is list and len(hashed) == len(copy)
+                and all(map(_same_json, hashed, copy)))
+    kinds = (type(hashed), type(copy))
+    if kinds == (int, float):
+        return copy == hashed and abs(hashed) < _SAFE_INTEGER
+    if kinds == (float, int):
+        return Decimal(repr(hashed)) == copy
+    return kinds[0] is kinds[1] and hashed == copy

@@ -51,6 +51,25 @@ def env_int(name: str, default: int, *, minimum: int = 0) -> int:
     return value
 
 
+_RATE_PERIODS = {"s", "sec", "second", "m", "min", "minute", "h", "hour", "d", "day"}
+
+
+def env_rate(name: str, default: str) -> str:
+    """Read a throttle rate such as ``30/min`` (requests per second, minute, hour or day).
+
+    DRF would only parse it on the first throttled request and answer 500 there.
+    """
+    raw = os.environ.get(name)
+    if raw is None:
+        return default
+    count, _, period = raw.strip().partition("/")
+    if not (count.isdigit() and int(count) >= 1 and period in _RATE_PERIODS):
+        raise ImproperlyConfigured(
+            f"{name}: must be a number of requests per s, min, hour or day such as "
+            f"'30/min', got {raw!r}")
+    return raw.strip()
+
+
 def secret_key(data_dir: Path, debug: bool) -> str:
     """Return SECRET_KEY from the environment, or a local one kept in the data folder.
 

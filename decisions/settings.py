@@ -29,7 +29,7 @@ from pathlib import Path
 import dj_database_url
 from django.core.exceptions import ImproperlyConfigured
 
-from decisions.envconfig import env_bool, env_int, env_list, secret_key
+from decisions.envconfig import env_bool, env_int, env_list, env_rate, secret_key
 
 BASE_DIR = Path(__file__).resolve().parent.parent
 DATA_DIR = Path(os.environ.get("DECISIONS_DATA_DIR", BASE_DIR / "data")).resolve()
@@ -155,9 +155,9 @@ REST_FRAMEWORK = {
     "DEFAULT_METADATA_CLASS": None,
     # Fairness limits, not a security boundary (enforce hard limits at the proxy).
     "DEFAULT_THROTTLE_RATES": {
-        "token": os.environ.get("API_TOKEN_RATE", "20/min"),
-        "evaluate": os.environ.get("API_EVALUATE_RATE", "120/min"),
-        "memo": os.environ.get("API_MEMO_RATE", "30/min"),
+        "token": env_rate("API_TOKEN_RATE", "20/min"),
+        "evaluate": env_rate("API_EVALUATE_RATE", "120/min"),
+        "memo": env_rate("API_MEMO_RATE", "30/min"),
     },
 }
 

@@ -63,3 +63,20 @@ def test_boolean_variables_refuse_a_typo(monkeypatch):
     monkeypatch.setenv("SOME_FLAG", "ture")
     with pytest.raises(ImproperlyConfigured, match="SOME_FLAG: must be one of"):
         envconfig.env_bool("SOME_FLAG")
+
+
+@pytest.mark.parametrize("raw", ["abc", "30", "0/min", "30/fortnight", "-5/min", "/min"])
+def test_a_malformed_throttle_rate_stops_start_up_naming_the_variable(monkeypatch, raw):
+    monkeypatch.setenv("API_MEMO_RATE", raw)
+    with pytest.raises(ImproperlyConfigured, match=r"^API_MEMO_RATE: must be a number of requests"):
+        envconfig.env_rate("API_MEMO_RATE", "30/min")
+
+
+@pytest.mark.parametrize(("raw", "expected"), [(None, "30/min"), ("5/second", "5/second"),
+                                               (" 100/hour ", "100/hour"), ("1/d", "1/d")])
+def test_well_formed_throttle_rates_are_taken(monkeypatch, raw, expected):
+    if raw is None:
+        monkeypatch.delenv("API_MEMO_RATE", raising=False)
+    else:
+        monkeypatch.setenv("API_MEMO_RATE", raw)
+    assert envconfig.env_rate("API_MEMO_RATE", "30/min") == expected

@@ -20,6 +20,7 @@ import shutil
 from pathlib import Path
 
 import pytest
+from django.db import connection
 
 from decisions.models import Decision, Status
 from tests.dbutil import purge_register
@@ -109,6 +110,9 @@ def register_purged():
     triggers would refuse the runner's flush afterwards, so empty those tables first."""
     yield
     purge_register()
+    # Close the connection the purge used: left open, it keeps a session on the test
+    # database and PostgreSQL then refuses to drop that database at the end of the run.
+    connection.close()
 
 
 @pytest.mark.django_db(transaction=True)

@@ -36,7 +36,7 @@ from valuation.limits import (
 )
 from valuation.table import COMMON_FIELDS, check_common
 
-__all__ = ["FlatTree", "Rollback", "build_tree", "rollback", "reach_probabilities"]
+__all__ = ["FlatTree", "Rollback", "build_tree", "rollback", "reach_probabilities", "spans"]
 
 END, CHANCE, DECISION = 0, 1, 2
 _KINDS = {"end": END, "chance": CHANCE, "decision": DECISION}
@@ -462,6 +462,13 @@ def _read_branches(i, node, k, index, problems, sign, rate, out, first, count) -
         )
 
 
+def spans(first: np.ndarray, count: np.ndarray) -> np.ndarray:
+    """``first[i], first[i] + 1, ..., first[i] + count[i] - 1`` for every i, end to end:
+    the gather of several runs of consecutive positions without a Python loop."""
+    offsets = np.cumsum(count) - count
+    return np.repeat(first - offsets, count) + np.arange(int(count.sum()))
+
+
 def _depths(n, root, parent, child, first, count, ids, problems) -> np.ndarray | None:
     """Depth of every node by breadth-first levels; refuses shared subtrees and cycles."""
     indegree = np.bincount(child, minlength=n)
@@ -486,8 +493,7 @@ def _depths(n, root, parent, child, first, count, ids, problems) -> np.ndarray |
         if not starts.size:
             break
         # Gather every branch of every frontier node without a Python loop.
-        offsets = np.repeat(starts - np.cumsum(counts) + counts, counts) + np.arange(counts.sum())
-        frontier = child[offsets]
+        frontier = child[spans(starts, counts)]
         level += 1
         depth[frontier] = level
     unreached = np.flatnonzero(depth < 0)

@@ -21,6 +21,7 @@ from valuation.flattree import (
     Rollback,
     reach_probabilities,
     rollback,
+    spans,
 )
 from valuation.utility import certainty_equivalent
 
@@ -203,16 +204,16 @@ def clairvoyant_value(tree: FlatTree, risk_tolerance=None) -> float:
 class _Pool:
     """Distributions of the nodes finished at the last level, one run per node."""
 
-    __slots__ = ("count", "owner", "prob", "start", "value")
+    __slots__ = ("count", "prob", "start", "value")
 
-    def __init__(self, owner, value, prob, start, count):
-        self.owner, self.value, self.prob = owner, value, prob
+    def __init__(self, value, prob, start, count):
+        self.value, self.prob = value, prob
         self.start, self.count = start, count
 
     @classmethod
     def empty(cls, n_nodes: int) -> _Pool:
-        return cls(np.zeros(0, np.int64), np.zeros(0), np.zeros(0),
-                   np.zeros(n_nodes, np.int64), np.zeros(n_nodes, np.int64))
+        return cls(np.zeros(0), np.zeros(0), np.zeros(n_nodes, np.int64),
+                   np.zeros(n_nodes, np.int64))
 
 
 def _next_level(tree: FlatTree, pool: _Pool, a: int, b: int) -> _Pool:
@@ -221,10 +222,10 @@ def _next_level(tree: FlatTree, pool: _Pool, a: int, b: int) -> _Pool:
     leaf = tree.kind[child] == END
     counts = np.where(leaf, 1, pool.count[child])
     branch = np.repeat(np.arange(a, b), counts)
-    first = np.cumsum(counts) - counts
-    pos = np.repeat(pool.start[child] - first, counts) + np.arange(len(branch))
+    # An end node never owns a run: its start stays 0, so its one entry reads position 0
+    # (a placeholder, replaced by its payoff below).
+    pos = spans(pool.start[child], counts)
     leaf_e = leaf[branch - a]
-    pos = np.where(leaf_e, 0, pos)
     if len(pool.value):
         value = np.where(leaf_e, tree.payoff[tree.child[branch]], pool.value[pos])
         prob = np.where(leaf_e, 1.0, pool.prob[pos])
@@ -255,7 +256,7 @@ def _next_level(tree: FlatTree, pool: _Pool, a: int, b: int) -> _Pool:
     owners, first_at, n_at = np.unique(g_owner, return_index=True, return_counts=True)
     pool.start[owners] = first_at
     pool.count[owners] = n_at
-    return _Pool(g_owner, g_value, g_prob, pool.start, pool.count)
+    return _Pool(g_value, g_prob, pool.start, pool.count)
 
 
 def _max_pmf(tree: FlatTree, owner, prob, branch, last, g_owner) -> np.ndarray:
@@ -322,13 +323,13 @@ def learning_values(tree: FlatTree, nodes, base: Rollback, risk_tolerance=None) 
     first, count = tree.first_branch[nodes], tree.branch_count[nodes]
     # One row per revealed outcome (node k, branch b of positive probability): the
     # tree's probabilities with node k's branches set to 0 and branch b to 1.
-    branch = _spans(first, count)
+    branch = spans(first, count)
     live = tree.prob[branch] > 0
     owners, chosen = np.repeat(np.arange(len(nodes)), count)[live], branch[live]
     weights = tree.prob[chosen]
     rows = np.repeat(tree.prob[None, :], len(chosen), axis=0)
     per_row = count[owners]
-    rows[np.repeat(np.arange(len(chosen)), per_row), _spans(first[owners], per_row)] = 0.0
+    rows[np.repeat(np.arange(len(chosen)), per_row), spans(first[owners], per_row)] = 0.0
     rows[np.arange(len(chosen)), chosen] = 1.0
     revealed = _root_values(tree, rows, risk_tolerance)
     if risk_tolerance:
@@ -339,8 +340,3 @@ def learning_values(tree: FlatTree, nodes, base: Rollback, risk_tolerance=None) 
     base_value = float(base.value[tree.root])
     return [max(0.0, float(v) - base_value) for v in with_info]
 
-
-def _spans(first: np.ndarray, count: np.ndarray) -> np.ndarray:
-    """``first[i], first[i] + 1, ..., first[i] + count[i] - 1`` for every i, end to end."""
-    offsets = np.cumsum(count) - count
-    return np.repeat(first - offsets, count) + np.arange(int(count.sum()))

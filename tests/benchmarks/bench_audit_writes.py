@@ -26,30 +26,9 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
+from tests.benchmarks.scratch_db import admin_url, drop, recreate  # noqa: E402 - after the path
+
 SCRATCH = "register_bench"
-
-
-def _admin_url() -> str:
-    url = os.environ.get("DATABASE_URL", "postgres://postgres@127.0.0.1:5432/postgres")
-    if not url.startswith("postgres"):
-        sys.exit("DATABASE_URL must point at PostgreSQL (this benchmark measures row locks)")
-    return url
-
-
-def _recreate(admin_url: str) -> str:
-    import psycopg
-
-    with psycopg.connect(admin_url, autocommit=True) as conn:
-        conn.execute(f"DROP DATABASE IF EXISTS {SCRATCH} WITH (FORCE)")
-        conn.execute(f"CREATE DATABASE {SCRATCH}")
-    return admin_url.rsplit("/", 1)[0] + f"/{SCRATCH}"
-
-
-def _drop(admin_url: str) -> None:
-    import psycopg
-
-    with psycopg.connect(admin_url, autocommit=True) as conn:
-        conn.execute(f"DROP DATABASE IF EXISTS {SCRATCH} WITH (FORCE)")
 
 
 def run(seconds: float, writer_counts: list[int]) -> list[dict]:
@@ -115,15 +94,15 @@ def main() -> None:
     parser.add_argument("--seconds", type=float, default=5.0)
     parser.add_argument("--writers", default="1,2,4,8,16")
     args = parser.parse_args()
-    admin = _admin_url()
-    os.environ["DATABASE_URL"] = _recreate(admin)
+    admin = admin_url("this benchmark measures row locks")
+    os.environ["DATABASE_URL"] = recreate(admin, SCRATCH)
     os.environ.setdefault("DJANGO_SETTINGS_MODULE", "decisions.settings")
     os.environ.setdefault("SECRET_KEY", "benchmark-only-key-not-for-production-0123456789")
     os.environ["DECISIONS_DATA_DIR"] = tempfile.mkdtemp(prefix="register_bench_")
     try:
         run(args.seconds, [int(w) for w in args.writers.split(",")])
     finally:
-        _drop(admin)
+        drop(admin, SCRATCH)
 
 
 if __name__ == "__main__":

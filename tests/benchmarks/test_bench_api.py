@@ -16,7 +16,6 @@ import json
 import os
 import socket
 import subprocess
-import threading
 import time
 from collections import Counter
 from pathlib import Path
@@ -64,30 +63,7 @@ def _post(token: str, body: bytes, path: str = "/api/evaluate/") -> int:
 
 
 def _closed_loop(token: str, body: bytes, seconds: float) -> tuple[list[float], Counter, float]:
-    latencies, statuses, lock = [], Counter(), threading.Lock()
-    stop = time.perf_counter() + seconds
-
-    def client():
-        while time.perf_counter() < stop:
-            with lock:
-                if len(latencies) >= MAX_REQUESTS:
-                    return
-            t0 = time.perf_counter()
-            try:
-                status = _post(token, body)
-            except OSError as exc:
-                status = type(exc).__name__
-            with lock:
-                latencies.append(time.perf_counter() - t0)
-                statuses[status] += 1
-
-    t0 = time.perf_counter()
-    threads = [threading.Thread(target=client, daemon=True) for _ in range(CLIENTS)]
-    for th in threads:
-        th.start()
-    for th in threads:
-        th.join(timeout=seconds + 60)
-    return latencies, statuses, time.perf_counter() - t0
+    return lt.run_closed_loop(lambda: _post(token, body), CLIENTS, seconds, MAX_REQUESTS)
 
 
 def _cpu_seconds(pids: list[int]) -> float:

@@ -47,28 +47,14 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[3]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests" / "benchmarks"))
+from scratch_db import admin_url, recreate  # noqa: E402 - after the path
+
 SCRATCH = "register_load"
 HOST, PORT = "127.0.0.1", 8765
 PASSWORD = "load test password 7"  # invented users of a scratch database
 RESULTS = ROOT / "tests" / "benchmarks" / "LOAD_RESULTS.md"
 MIX = [("list", 30), ("view", 35), ("evaluate", 15), ("save", 10), ("sign", 10)]
 SIGNERS = 10
-
-
-def _admin_url() -> str:
-    url = os.environ.get("DATABASE_URL", "postgres://postgres@127.0.0.1:5432/postgres")
-    if not url.startswith("postgres"):
-        sys.exit("DATABASE_URL must point at PostgreSQL")
-    return url
-
-
-def _recreate(admin_url: str) -> str:
-    import psycopg
-
-    with psycopg.connect(admin_url, autocommit=True) as conn:
-        conn.execute(f"DROP DATABASE IF EXISTS {SCRATCH} WITH (FORCE)")
-        conn.execute(f"CREATE DATABASE {SCRATCH}")
-    return admin_url.rsplit("/", 1)[0] + f"/{SCRATCH}"
 
 
 def _environment(db_url: str, data_dir: Path) -> dict:
@@ -281,7 +267,10 @@ def open_loop(workload: Workload, rate: float, seconds: float, clients: int) -> 
             "transport_errors": dict(errors)}
 
 
-def closed_loop(path: str, clients: int, seconds: float, max_requests: int = 200_000) -> dict:
+def run_closed_loop(send, clients: int, seconds: float, max_requests: int):
+    """``clients`` threads each call ``send()`` (which returns a status) again as soon as
+    it returns, for ``seconds`` or ``max_requests`` calls in all; returns the latencies,
+    a count of statuses (or of transport error names) and the elapsed seconds."""
     latencies, statuses, lock = [], Counter(), threading.Lock()
     stop = time.perf_counter() + seconds
 
@@ -292,7 +281,7 @@ def closed_loop(path: str, clients: int, seconds: float, max_requests: int = 200
                     return
             t0 = time.perf_counter()
             try:
-                status = _request("GET", path)[0]
+                status = send()
             except (OSError, http.client.HTTPException) as exc:
                 status = type(exc).__name__
             with lock:
@@ -304,8 +293,13 @@ def closed_loop(path: str, clients: int, seconds: float, max_requests: int = 200
     for th in threads:
         th.start()
     for th in threads:
-        th.join(timeout=seconds + 30)
-    elapsed = time.perf_counter() - t0
+        th.join(timeout=seconds + 60)
+    return latencies, statuses, time.perf_counter() - t0
+
+
+def closed_loop(path: str, clients: int, seconds: float, max_requests: int = 200_000) -> dict:
+    latencies, statuses, elapsed = run_closed_loop(lambda: _request("GET", path)[0], clients,
+                                                   seconds, max_requests)
     return {"path": path, "clients": clients, "seconds": round(elapsed, 1),
             "achieved_rps": len(latencies) / elapsed, "latency": _percentiles(latencies),
             "statuses": {str(k): v for k, v in statuses.items()}}
@@ -412,9 +406,9 @@ def main() -> None:
     if args.rate * args.seconds > 20_000 or args.seconds > 600:
         sys.exit("bounded: at most 20,000 operations and 600 s")
 
-    admin = _admin_url()
+    admin = admin_url()
     data_dir = Path(tempfile.mkdtemp(prefix="register_load_"))
-    db_url = _recreate(admin)
+    db_url = recreate(admin, SCRATCH)
     env = _environment(db_url, data_dir)
     os.environ.update(env)
     sign_ops = int(args.rate * args.seconds * 0.10 * 1.5) + 10

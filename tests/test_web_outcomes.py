@@ -13,28 +13,17 @@ import re
 from fractions import Fraction
 
 import pytest
-from django.test import Client
 from django.urls import reverse
 
 from decisions.models import Outcome, Status
 from decisions.services import outcomes
 from decisions.services.locking import IF_MATCH_ANY
 from tests.source_helpers import committed, draft_with, survey_table
+from tests.webutil import client_as, html
 
 pytestmark = pytest.mark.django_db
 
 CAUTION = "Figures are model outputs resting on the stated assumptions"
-
-
-def client_as(user=None, **kwargs) -> Client:
-    client = Client(**kwargs)
-    if user is not None:
-        client.force_login(user)
-    return client
-
-
-def html(response) -> str:
-    return response.content.decode()
 
 
 def etag(decision) -> str:

@@ -18,15 +18,9 @@ from decisions.services import decisions as svc
 from decisions.services import signoff as signing
 from decisions.services.locking import IF_MATCH_ANY
 from tests.personas import PASSWORD, small_table
+from tests.webutil import client_as, html
 
 pytestmark = pytest.mark.django_db
-
-
-def client_as(user=None, **kwargs) -> Client:
-    client = Client(**kwargs)
-    if user is not None:
-        client.force_login(user)
-    return client
 
 
 def page_urls(decision) -> dict[str, str]:
@@ -42,10 +36,6 @@ def page_urls(decision) -> dict[str, str]:
 def etag(decision) -> str:
     decision.refresh_from_db()
     return decision.etag
-
-
-def html(response) -> str:
-    return response.content.decode()
 
 
 # ---- permission matrix ---------------------------------------------------------------

@@ -14,27 +14,16 @@ from fractions import Fraction
 
 import pytest
 from django.template.defaultfilters import date as date_filter
-from django.test import Client
 from django.urls import reverse
 
 from decisions.services import outcomes
 from decisions.services.locking import IF_MATCH_ANY
 from tests.source_helpers import committed, survey_source
+from tests.webutil import client_as, html
 
 pytestmark = pytest.mark.django_db
 
 URL = "/portfolio/"
-
-
-def client_as(user=None) -> Client:
-    client = Client()
-    if user is not None:
-        client.force_login(user)
-    return client
-
-
-def html(response) -> str:
-    return response.content.decode()
 
 
 @pytest.fixture

@@ -12,7 +12,6 @@ import re
 
 import pytest
 from django.core.files.uploadedfile import SimpleUploadedFile
-from django.test import Client
 from django.urls import reverse
 
 from decisions.models import StudyRecord, StudySource
@@ -27,6 +26,7 @@ from tests.source_helpers import (
     survey_table,
     tellurion_source,
 )
+from tests.webutil import client_as, html
 
 pytestmark = pytest.mark.django_db
 
@@ -35,17 +35,6 @@ GOOD_CSV = (b"date,signal,state,note\n2021-03-01,good,hot,invented\n2021-04-01,p
             b"2021-05-01,good,cold,invented\n")
 BAD_CSV = (b"date,signal,state\n2021-03-01,good,hot\n2021-13-01,good,hot\n2021-05-01,meh,cold\n"
            b"2021-06-01,good,lukewarm\n")
-
-
-def client_as(user=None, **kwargs) -> Client:
-    client = Client(**kwargs)
-    if user is not None:
-        client.force_login(user)
-    return client
-
-
-def html(response) -> str:
-    return response.content.decode()
 
 
 def errors_of(page: str, field: str) -> str:

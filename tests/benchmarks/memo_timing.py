@@ -18,19 +18,15 @@ import cProfile
 import io
 import json
 import pstats
-import statistics
 import sys
 import time
 
+from tests.benchmarks.conftest import median_time
+
 
 def _median(fn, runs: int) -> dict:
-    walls, cpus = [], []
-    for _ in range(runs):
-        c0, w0 = time.process_time(), time.perf_counter()
-        fn()
-        walls.append(time.perf_counter() - w0)
-        cpus.append(time.process_time() - c0)
-    return {"wall": statistics.median(walls), "cpu": statistics.median(cpus)}
+    wall, cpu = median_time(fn, runs)
+    return {"wall": wall, "cpu": cpu}
 
 
 def main() -> None:

@@ -5,15 +5,18 @@ Server start-up reuses the load script's helpers (tests/benchmarks/load/load_tes
 production-like environment with DEBUG off and the fairness throttles lifted, the
 request helper, the wait-and-warm-up). The database is a throwaway SQLite file in the
 test's temporary folder (migrated, one invented user and token made with ``manage.py
-shell``). The clients are 16 threads in this process using ``http.client`` on
-127.0.0.1 only, closed loop (each sends its next request when the last is answered),
-bounded in time and count; the first seconds are a warm-up, excluded. Everything shares
-the machine's 2 cores: the server, the clients and whatever else runs.
+shell``). The 16 clients are wrk's connections when Debian's ``wrk`` is installed (the
+figure the target is judged on), and 16 threads in this process using ``http.client``
+for comparison (and as the judged figure when wrk is missing); 127.0.0.1 only, closed
+loop (each sends its next request when the last is answered), bounded in time; the first
+seconds are a warm-up, excluded. Everything shares the machine's 2 cores: the server,
+the clients and whatever else runs.
 """
 
 import http.client
 import json
 import os
+import shutil
 import socket
 import subprocess
 import time
@@ -29,7 +32,7 @@ from tests.benchmarks.load import load_test as lt
 pytestmark = pytest.mark.benchmark
 COMMAND = "python -m pytest tests/benchmarks/test_bench_api.py -m benchmark -s"
 CLIENTS, WORKERS, WARM_UP, SECONDS, MAX_REQUESTS = 16, 2, 5.0, 30.0, 50_000
-FLOOR_SECONDS = 15.0
+FLOOR_SECONDS = THREADS_SECONDS = 15.0
 # Tree sizes for the growth table (one client); 10^5 nodes is beyond the default body limit.
 GROWTH_SIZES = ((199, 40), (1_000, 20), (10_000, 7))
 
@@ -64,6 +67,51 @@ def _post(token: str, body: bytes, path: str = "/api/evaluate/") -> int:
 
 def _closed_loop(token: str, body: bytes, seconds: float) -> tuple[list[float], Counter, float]:
     return lt.run_closed_loop(lambda: _post(token, body), CLIENTS, seconds, MAX_REQUESTS)
+
+
+# wrk (Debian's package) drives the 16 connections from C: its own CPU per request is a
+# small fraction of the Python threads', and a finished response is timed at once, not
+# after waiting for the interpreter lock, so the latency is the server's.
+_WRK_SCRIPT = """
+wrk.method = "POST"
+local f = assert(io.open({body!r}, "rb")); wrk.body = f:read("*a"); f:close()
+wrk.headers["Content-Type"] = "application/json"
+wrk.headers["Accept"] = "application/json"
+wrk.headers["Authorization"] = "Token {token}"
+wrk.headers["Connection"] = "close"
+done = function(summary, latency, requests)
+  local e = summary.errors
+  io.write(string.format("RESULT %d %d %d %d %d %d %d", summary.requests, summary.duration,
+    e.connect, e.read, e.write, e.status, e.timeout))
+  for _, p in ipairs({{50, 95, 99}}) do io.write(string.format(" %d", latency:percentile(p))) end
+  io.write(string.format(" %d\\n", latency.max))
+end
+"""
+
+
+def _wrk(token: str, body: bytes, seconds: float, folder: Path) -> dict | None:
+    """16 connections from wrk for ``seconds``; None when wrk is not installed."""
+    if shutil.which("wrk") is None:
+        return None
+    body_path, script = folder / f"wrk-body-{len(body)}.json", folder / "wrk.lua"
+    body_path.write_bytes(body)
+    script.write_text(_WRK_SCRIPT.format(body=str(body_path), token=token))
+    url = f"http://{lt.HOST}:{lt.PORT}/api/evaluate/"
+    run = subprocess.run(["wrk", "-t2", f"-c{CLIENTS}", f"-d{seconds:.0f}s", "--timeout", "30s",
+                          "-s", str(script), url], capture_output=True, text=True, check=True)
+    fields = next(line for line in run.stdout.splitlines() if line.startswith("RESULT")).split()
+    n, duration, connect, read, write, status, timeout, p50, p95, p99, top = map(int, fields[1:])
+    return {"n": n, "rate": n / (duration / 1e6), "p50": p50 / 1000, "p95": p95 / 1000,
+            "p99": p99 / 1000, "max": top / 1000, "non_2xx": status,
+            "transport_errors": connect + read + write + timeout}
+
+
+def _wrk_with_cpu(pids, token: str, body: bytes, seconds: float, folder: Path) -> dict | None:
+    before = _cpu_seconds(pids)
+    result = _wrk(token, body, seconds, folder)
+    if result is not None:
+        result["server_cpu_ms"] = (_cpu_seconds(pids) - before) / max(result["n"], 1) * 1000
+    return result
 
 
 def _cpu_seconds(pids: list[int]) -> float:
@@ -107,6 +155,66 @@ def _server_cpu_per_request(pids, token: str, body: bytes, n: int = 100) -> floa
     return (_cpu_seconds(pids) - before) / n * 1000
 
 
+def _row(label: str, r: dict | None, answers: str, bold: bool = False) -> str:
+    if r is None:
+        return f"| {label} | wrk is not installed (apt-get install wrk) | | | | | | |"
+    p95 = f"**{r['p95']:.1f} ms**" if bold else f"{r['p95']:.1f} ms"
+    cpu = f"{r['server_cpu_ms']:.1f} ms" if "server_cpu_ms" in r else "—"
+    return (f"| {label} | {r['n']:,} | {r['rate']:.1f} req/s | {r['p50']:.1f} ms | {p95} | "
+            f"{r['p99']:.1f} ms | {r['max']:.1f} ms | {cpu} | {answers} |")
+
+
+def _wrk_answers(r: dict | None) -> str:
+    if r is None:
+        return ""
+    return "all 200" if not r["non_2xx"] + r["transport_errors"] else (
+        f"{r['non_2xx']:,} not 2xx, {r['transport_errors']:,} transport errors")
+
+
+def _report(body, one, cpu, floor_cpu, growth, by_wrk, floor_wrk, threads, threads_floor):
+    (t, t_statuses), (tf, tf_statuses) = threads, threads_floor
+    main = by_wrk or t
+    lines = [
+        f"gunicorn {WORKERS} sync workers, DEBUG off, throttles lifted (per second), throwaway "
+        f"SQLite file; tree of 199 nodes ({len(body) / 1024:.0f} KiB of JSON, encoded once); "
+        f"{CLIENTS} clients in a closed loop, a new connection per request, 127.0.0.1 only: "
+        f"wrk (2 threads, {SECONDS:.0f} s) and, for comparison, {CLIENTS} Python threads "
+        f"(http.client, {THREADS_SECONDS:.0f} s), after a {WARM_UP:.0f} s warm-up. Server, "
+        f"clients and other work share 2 cores (load average {os.getloadavg()[0]:.1f}).",
+        "",
+        "| clients | requests | achieved rate | p50 | p95 | p99 | max | server CPU / request "
+        "| answers |",
+        "|---|---:|---:|---:|---:|---:|---:|---:|---|",
+        f"| 1 (sequential) | {one['n']} | — | {one['p50']:.1f} ms | {one['p95']:.1f} ms | "
+        f"{one['p99']:.1f} ms | {one['max']:.1f} ms | {cpu:.1f} ms | 200 |",
+        _row(f"{CLIENTS}, wrk", by_wrk, _wrk_answers(by_wrk), bold=True),
+        _row(f"{CLIENTS}, wrk, floor (tiny refused document)", floor_wrk,
+             f"{floor_wrk['non_2xx']:,} not 2xx (400 expected), "
+             f"{floor_wrk['transport_errors']} transport errors" if floor_wrk else ""),
+        _row(f"{CLIENTS}, Python threads", t, str(dict(t_statuses))),
+        _row(f"{CLIENTS}, Python threads, floor", tf, str(dict(tf_statuses))),
+        "",
+        f"- Server CPU per request is the gunicorn processes' user + system time (/proc) over "
+        f"the run divided by the requests answered; one client alone: {cpu:.1f} ms for the "
+        f"evaluation, {floor_cpu:.1f} ms for the floor (authentication, parsing, a 400 answer).",
+        f"- At {main['rate']:.0f} req/s, the 2 cores give {2000 / main['rate']:.1f} ms per request "
+        f"all told (server, clients, the rest of the machine). With {WORKERS} sync workers, "
+        f"{CLIENTS} clients queue about {CLIENTS // WORKERS} deep, so the latency is about "
+        f"{CLIENTS} / rate: a p95 under 50 ms needs roughly {CLIENTS / 0.040:.0f} req/s, "
+        f"about {2000 * 0.040 / CLIENTS:.1f} ms per request all told.",
+        "- The Python threads cost their own CPU on the same cores and time a response only "
+        "once they get the interpreter lock back; wrk's figures are the server's.",
+        "- Growth, one client (median latency; server CPU per request):",
+        "",
+        "| nodes | body | latency (median) | server CPU | CPU per node |",
+        "|---:|---:|---:|---:|---:|",
+        *[f"| {n:,} | {size / 1024:.0f} KiB | {lat:.1f} ms | {c:.1f} ms | {c / n * 1000:.1f} µs |"
+          for n, size, lat, c in growth],
+        "",
+    ]
+    return lines
+
+
 def test_evaluate_endpoint_p95_with_16_clients(tmp_path, monkeypatch):
     # The load script's helpers talk to its module-level HOST/PORT: point them at a free port
     # (its own 8765 may be taken by someone's development server).
@@ -142,7 +250,9 @@ def test_evaluate_endpoint_p95_with_16_clients(tmp_path, monkeypatch):
         floor_cpu = _server_cpu_per_request(pids, token, floor_body)
         growth = _growth(pids, token)
         _closed_loop(token, body, WARM_UP)  # warm-up with every client, excluded
-        latencies, statuses, elapsed = _closed_loop(token, body, SECONDS)
+        by_wrk = _wrk_with_cpu(pids, token, body, SECONDS, tmp_path)
+        floor_wrk = _wrk_with_cpu(pids, token, floor_body, FLOOR_SECONDS, tmp_path)
+        latencies, statuses, elapsed = _closed_loop(token, body, THREADS_SECONDS)
         floor, floor_statuses, floor_elapsed = _closed_loop(token, floor_body, FLOOR_SECONDS)
     finally:
         proc.terminate()
@@ -151,51 +261,16 @@ def test_evaluate_endpoint_p95_with_16_clients(tmp_path, monkeypatch):
         except subprocess.TimeoutExpired:
             proc.kill()
         log.close()
-    p = lt._percentiles(latencies)
-    one = lt._percentiles(single)
-    low = lt._percentiles(floor)
-    rate = len(latencies) / elapsed
-    met = check_target(p["p95"] < 50, f"p95 {p['p95']:.0f} ms >= 50 ms")
-    ok = statuses.get(200, 0)
-    lines = [
-        f"gunicorn {WORKERS} sync workers, DEBUG off, throttles lifted, throwaway SQLite file; "
-        f"{CLIENTS} client threads (http.client, 127.0.0.1, a new connection per request), "
-        f"closed loop for {SECONDS:.0f} s after a {WARM_UP:.0f} s warm-up; tree of 199 nodes "
-        f"({len(body) / 1024:.0f} KiB of JSON, encoded once). Server, clients and other work share 2 cores "
-        f"(load average {os.getloadavg()[0]:.1f}).",
-        "",
-        "| clients | requests | achieved rate | p50 | p95 | p99 | max | answers |",
-        "|---:|---:|---:|---:|---:|---:|---:|---|",
-        f"| 1 (sequential) | {one['n']} | — | {one['p50']:.1f} ms | {one['p95']:.1f} ms | "
-        f"{one['p99']:.1f} ms | {one['max']:.1f} ms | 200 |",
-        f"| {CLIENTS} | {p['n']:,} | {rate:.1f} req/s | {p['p50']:.1f} ms | **{p['p95']:.1f} ms** | "
-        f"{p['p99']:.1f} ms | {p['max']:.1f} ms | {dict(statuses)} |",
-        f"| {CLIENTS}, floor (tiny refused document) | {low['n']:,} | "
-        f"{len(floor) / floor_elapsed:.1f} req/s | {low['p50']:.1f} ms | {low['p95']:.1f} ms | "
-        f"{low['p99']:.1f} ms | {low['max']:.1f} ms | {dict(floor_statuses)} |",
-        "",
-        f"- CPU per request at full load, from the rate (2 cores / requests per second, "
-        f"server and clients together): **{2000 / rate:.1f} ms** for the 199-node evaluation, "
-        f"{2000 * floor_elapsed / max(len(floor), 1):.1f} ms for the floor (authentication, "
-        f"parsing, a 400 answer). For the p95 to fall under 50 ms, 16 clients need about "
-        f"{2 * 45 / CLIENTS:.1f} ms per request all told.",
-        f"- Server CPU per request with one client (gunicorn processes, /proc, 100 requests): "
-        f"{cpu:.1f} ms for the evaluation, {floor_cpu:.1f} ms for the floor (on this virtual "
-        f"machine the one-client figure runs above the full-load one; the queue sees the latter).",
-        "- Growth, one client (median latency; server CPU per request):",
-        "",
-        "| nodes | body | latency (median) | server CPU | CPU per node |",
-        "|---:|---:|---:|---:|---:|",
-        *[f"| {n:,} | {size / 1024:.0f} KiB | {lat:.1f} ms | {c:.1f} ms | {c / n * 1000:.1f} µs |"
-          for n, size, lat, c in growth],
-        "",
-        f"- p95 with {CLIENTS} clients: **{p['p95']:.0f} ms** — target 50 ms: {met}. "
-        f"{ok:,} of {p['n']:,} answers were 200.",
-        f"- With {WORKERS} sync workers, {CLIENTS} clients queue about {CLIENTS / WORKERS:.0f} deep: the "
-        f"latency is roughly {CLIENTS / WORKERS:.0f} x the service time (one client alone: p50 "
-        f"{one['p50']:.1f} ms), and the rate is bounded by 2 cores / the CPU per request.",
-        f"- The floor row is the same stack answering at once: its p95 ({low['p95']:.0f} ms) "
-        f"is what 16 clients cost here before any evaluation; the 199-node tree adds "
-        f"{p['p95'] - low['p95']:.0f} ms to the p95.",
-    ]
+    threads = lt._percentiles(latencies)
+    threads["rate"] = len(latencies) / elapsed
+    threads_floor = lt._percentiles(floor)
+    threads_floor["rate"] = len(floor) / floor_elapsed
+    main = by_wrk or threads
+    assert (by_wrk["non_2xx"] + by_wrk["transport_errors"] == 0 if by_wrk
+            else statuses == Counter({200: len(latencies)})), (by_wrk, statuses)
+    met = check_target(main["p95"] < 50, f"p95 {main['p95']:.0f} ms >= 50 ms")
+    lines = _report(body, lt._percentiles(single), cpu, floor_cpu, growth, by_wrk, floor_wrk,
+                    (threads, statuses), (threads_floor, floor_statuses))
+    lines.append(f"- p95 with {CLIENTS} clients ({'wrk' if by_wrk else 'Python threads'}): "
+                 f"**{main['p95']:.0f} ms** — target 50 ms: {met}.")
     write_section("POST /api/evaluate/, 16 clients (target 6)", COMMAND, "\n".join(lines))

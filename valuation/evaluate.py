@@ -11,6 +11,7 @@ from typing import Any
 
 import numpy as np
 
+from valuation import small_tree
 from valuation.checks import Problems, describe
 from valuation.errors import ModelValidationError, Problem
 from valuation.expand import NO_STUDY, expand_table, expanded_size
@@ -265,7 +266,12 @@ def _table_nodes(t: PayoffTable, r, warnings: list[str]) -> dict:
 
 
 def _evaluate_tree(tree: FlatTree, r) -> dict:
-    rb = rollback(tree, risk_tolerance=r)
+    # A small tree is evaluated on Python lists (valuation.small_tree, the same figures to
+    # the last bit); ``view`` is then the tree as lists, which the element-by-element
+    # steps below read faster than arrays.
+    lists = small_tree.as_lists(tree, r)
+    view = tree if lists is None else lists
+    rb = rollback(tree, risk_tolerance=r) if lists is None else small_tree.rollback(lists, r)
     s = tree.sign
     out = _header(tree, r)
     root = tree.root
@@ -273,31 +279,34 @@ def _evaluate_tree(tree: FlatTree, r) -> dict:
     out["expected_value"] = s * ev_root
     if r:
         out["certainty_equivalent"] = s * float(rb.value[root])
-    steps, truncated = plan_steps(tree, rb)
+    steps, truncated = plan_steps(view, rb)
     if truncated:
         out["warnings"].append(f"the plan lists its first {len(steps)} decisions only")
     out["policy"] = {"text": plan_text(steps, truncated), "steps": steps}
-    out["alternatives"] = _root_alternatives(tree, rb, r)
-    best_root = (tree.labels[int(rb.best[root])] if tree.kind[root] == DECISION else None)
+    out["alternatives"] = _root_alternatives(view, rb, r)
+    best_root = (tree.labels[int(rb.best[root])] if view.kind[root] == DECISION else None)
     without = {"expected_value": s * ev_root, "best_alternative": best_root}
     if r:
         without["certainty_equivalent"] = s * float(rb.value[root])
     out["without_information"] = without
     out["studies"] = []
     if tree.size <= INFORMATION_NODE_LIMIT:
-        out["evpi"] = max(0.0, clairvoyant_value(tree, r) - float(rb.value[root]))
-        out["information_values"] = _learning_values(tree, rb, r, out["warnings"])
+        clairvoyant = (small_tree.clairvoyant_value(lists, r)
+                       if lists is not None and tree.size <= small_tree.LIST_CLAIRVOYANT_NODES
+                       else clairvoyant_value(tree, r))
+        out["evpi"] = max(0.0, clairvoyant - float(rb.value[root]))
+        out["information_values"] = _learning_values(tree, lists, rb, r, out["warnings"])
     else:
         out["evpi"] = None
         out["information_values"] = []
         out["warnings"].append(f"EVPI and the value of learning each chance node are computed "
                                f"for trees of up to {INFORMATION_NODE_LIMIT:,} nodes")
-    out["risk_profile"] = risk_profile(tree, rb)
+    out["risk_profile"] = risk_profile(tree, rb) if lists is None else small_tree.risk_profile(lists, rb)
+    tied = np.flatnonzero(rb.tie)[:100].tolist()
     out["ties"] = [{"node": tree.ids[i], "chosen": tree.labels[int(rb.best[i])],
-                    "branches": _tied_labels(tree, rb, i)}
-                   for i in np.flatnonzero(rb.tie)[:100]]
+                    "branches": _tied_labels(view, rb, i)} for i in tied]
     if tree.size <= DETAIL_NODE_LIMIT:
-        out["nodes"] = node_details(tree, rb, r)
+        out["nodes"] = node_details(view, rb, r)
     else:
         out["nodes"] = {}
         out["warnings"].append(f"node details omitted for trees over {DETAIL_NODE_LIMIT:,} nodes")
@@ -328,14 +337,20 @@ def _tied_labels(tree: FlatTree, rb, node: int) -> list[str]:
     return [tree.labels[f + j] for j in np.flatnonzero(vals >= top - 1e-9 * max(1.0, abs(top)))]
 
 
-def _learning_values(tree: FlatTree, rb, r, warnings: list[str]) -> list[dict]:
-    chance = np.flatnonzero(tree.kind == CHANCE)
-    chance = chance[np.argsort(tree.depth[chance], kind="stable")]
+def _learning_values(tree: FlatTree, lists, rb, r, warnings: list[str]) -> list[dict]:
+    if lists is None:
+        chance = np.flatnonzero(tree.kind == CHANCE)
+        chance = chance[np.argsort(tree.depth[chance], kind="stable")].tolist()
+    else:
+        chance = small_tree.chance_nodes_by_depth(lists)
     if len(chance) > MAX_LEARNING_NODES:
         warnings.append(f"value of learning reported for the {MAX_LEARNING_NODES} chance nodes "
                         "nearest the root only")
         chance = chance[:MAX_LEARNING_NODES]
-    values = learning_values(tree, list(chance), rb, r)
+    if lists is None:
+        values = learning_values(tree, chance, rb, r)
+    else:
+        values = small_tree.learning_values(lists, chance, float(rb.value[tree.root]), r)
     return [{"node": tree.ids[i], "name": tree.names[i], "value": v}
             for i, v in zip(chance, values, strict=True)]
 

@@ -39,6 +39,10 @@ from valuation.table import COMMON_FIELDS, check_common
 __all__ = ["FlatTree", "Rollback", "build_tree", "rollback", "reach_probabilities", "spans"]
 
 END, CHANCE, DECISION = 0, 1, 2
+#: Trees of at most this many nodes are walked with Python lists rather than numpy
+#: arrays where a walk costs a fixed number of numpy calls per level or per node
+#: (each a few microseconds): below it the lists are faster, above it the arrays.
+LIST_WALK_NODES = 2000
 _KINDS = {"end": END, "chance": CHANCE, "decision": DECISION}
 _TREE_FIELDS = COMMON_FIELDS | {"root", "nodes"}
 _NODE_FIELDS = frozenset({"id", "kind", "name", "branches", "payoff", "time", "description"})
@@ -221,10 +225,10 @@ def _finish(common, ids, names, kind, payoff, root, parent, child, prob, cash, l
     bounds = np.searchsorted(parent_depth, levels, side="left")
     ends = np.searchsorted(parent_depth, levels, side="right")
     slices = [(int(a), int(b)) for a, b in zip(bounds, ends, strict=True)]
-    tree = FlatTree(*common, ids, names, kind, payoff, depth, root,
+    # The rollback plan is made on the first array rollback (``_plan_of``): a small
+    # tree evaluated with Python lists (``valuation.small_tree``) never needs it.
+    return FlatTree(*common, ids, names, kind, payoff, depth, root,
                     parent, child, prob, cash, labels, slices, first, count)
-    _plan_of(tree)
-    return tree
 
 
 # -- the fast reader -----------------------------------------------------------------------
@@ -480,13 +484,28 @@ def _depths(n, root, parent, child, first, count, ids, problems) -> np.ndarray |
         problems.add("root", f"the root {ids[root]!r} is the target of a branch (a cycle)")
     if problems:
         return None
+    walk = _walk_lists if n <= LIST_WALK_NODES else _walk_arrays
+    depth = walk(n, root, child, first, count)
+    if depth is None:
+        problems.add("nodes", f"the tree is deeper than {MAX_TREE_DEPTH} levels")
+        return None
+    unreached = np.flatnonzero(depth < 0)
+    for i in unreached[:20]:
+        problems.add(f"nodes[{i}]", f"node {ids[i]!r} is not reachable from the root "
+                     "(an orphan or part of a cycle)")
+    if unreached.size > 20:
+        problems.add("nodes", f"... {unreached.size - 20} more unreachable nodes")
+    return None if problems else depth
+
+
+def _walk_arrays(n, root, child, first, count) -> np.ndarray | None:
+    """Breadth-first depths (-1 where unreached), a few numpy calls per level; None when too deep."""
     depth = np.full(n, -1, dtype=np.int64)
     depth[root] = 0
     frontier = np.array([root], dtype=np.int64)
     level = 0
     while frontier.size:
         if level > MAX_TREE_DEPTH:
-            problems.add("nodes", f"the tree is deeper than {MAX_TREE_DEPTH} levels")
             return None
         has = count[frontier] > 0
         starts, counts = first[frontier[has]], count[frontier[has]]
@@ -496,13 +515,32 @@ def _depths(n, root, parent, child, first, count, ids, problems) -> np.ndarray |
         frontier = child[spans(starts, counts)]
         level += 1
         depth[frontier] = level
-    unreached = np.flatnonzero(depth < 0)
-    for i in unreached[:20]:
-        problems.add(f"nodes[{i}]", f"node {ids[i]!r} is not reachable from the root "
-                     "(an orphan or part of a cycle)")
-    if unreached.size > 20:
-        problems.add("nodes", f"... {unreached.size - 20} more unreachable nodes")
-    return None if problems else depth
+    return depth
+
+
+def _walk_lists(n, root, child, first, count) -> np.ndarray | None:
+    """``_walk_arrays`` over Python lists: on a small tree the numpy calls per level cost
+    more than the whole walk (tests/test_valuation_small_paths.py holds the two equal)."""
+    child_l, first_l, count_l = child.tolist(), first.tolist(), count.tolist()
+    depth = [-1] * n
+    depth[root] = 0
+    frontier = [root]
+    level = 0
+    while frontier:
+        if level > MAX_TREE_DEPTH:
+            return None
+        nxt: list[int] = []
+        for node in frontier:
+            if count_l[node]:
+                f = first_l[node]
+                nxt += child_l[f:f + count_l[node]]
+        if not nxt:
+            break
+        level += 1
+        for node in nxt:
+            depth[node] = level
+        frontier = nxt
+    return np.array(depth, dtype=np.int64)
 
 
 @dataclass

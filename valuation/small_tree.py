@@ -1,0 +1,513 @@
+"""Small general trees evaluated with Python lists, to the last bit of the array code.
+
+Why: a numpy call costs a few microseconds however short its arrays, and the array
+routines (``flattree.rollback``, ``tree_eval.clairvoyant_value``,
+``tree_eval.learning_values``, ``flattree.reach_probabilities``) spend a fixed number of
+calls per level or per node. On a tree of a few hundred nodes those fixed costs are
+most of ``valuation.evaluate``. Up to ``LIST_PATH_NODES`` nodes the routines here do
+the same floating-point operations in the same order on Python floats instead, so the
+result document is the same to the last bit (IEEE 754 addition, subtraction,
+multiplication and division are the same in Python and numpy). Where numpy's own
+order of operations decides a result, it is restated here:
+
+- ``np.add.reduceat`` gives each run its first element plus the sum of the rest, which
+  it starts from -0.0 (``_reduceat_sum``); ``np.bincount`` with weights and
+  ``np.cumsum`` add left to right, the first from 0.0.
+- ``np.maximum`` and ``np.minimum`` return their second argument when both compare
+  equal (0.0 and -0.0), and so do their reductions over runs of at most 8 elements;
+  over longer runs numpy regroups them. A tree with a node of more than
+  ``MAX_LIST_WIDTH`` branches is therefore left to the array code.
+- ``np.exp`` and ``np.log`` are not the C library's (they differ in the last bit now
+  and then), so they are still called, on a whole level at a time.
+- Amounts are bounded (``_AMOUNT_BOUND``) so that no value overflows: infinities and
+  NaN, where numpy and Python order comparisons differently, cannot arise.
+
+``tests/test_valuation_small_paths.py`` holds each routine equal to its array twin on
+generated trees, and ``valuation.evaluate`` on both paths to the same document.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from itertools import groupby
+from operator import itemgetter
+
+import numpy as np
+
+from valuation.flattree import CHANCE, DECISION, END, FlatTree, _cash_is_identity
+from valuation.limits import TIE_TOLERANCE
+from valuation.tree_eval import profile_from_outcomes
+from valuation.utility import certainty_equivalent
+
+__all__ = ["LIST_PATH_NODES", "LIST_CLAIRVOYANT_NODES", "ListTree", "ListRollback", "as_lists",
+           "rollback", "clairvoyant_value", "learning_values", "risk_profile", "chance_nodes_by_depth"]
+
+#: Trees of at most this many nodes are evaluated here (measured crossover: see the
+#: commit that set it; the array code wins on larger trees).
+LIST_PATH_NODES = 2000
+#: ... and their clairvoyant value up to this many nodes (its lists grow with the
+#: number of outcomes, and the array code catches up sooner).
+LIST_CLAIRVOYANT_NODES = 400
+#: Longest run numpy reduces strictly left to right (see the module docstring).
+MAX_LIST_WIDTH = 8
+#: Largest total of absolute amounts, and largest risk tolerance, evaluated here.
+_AMOUNT_BOUND = 1e300
+
+_INF = math.inf
+_value_of = itemgetter(0)
+
+
+@dataclass
+class ListTree:
+    """A ``FlatTree``'s arrays as Python lists, under the same names.
+
+    Code that reads a tree one element at a time (``tree_eval.plan_steps``,
+    ``tree_eval.node_details``) takes either, and runs faster on lists.
+    """
+
+    objective: str
+    sign: float
+    root: int
+    size: int
+    ids: list[str]
+    names: list[str]
+    labels: list[str]
+    kind: list[int]
+    payoff: list[float]
+    depth: list[int]
+    parent: list[int]
+    child: list[int]
+    prob: list[float]
+    cash: list[float]
+    first_branch: list[int]
+    branch_count: list[int]
+    skip_cash: bool  # adding the cash flows would change no value (as in ``rollback``)
+    levels: list[tuple[list[int], list[int]]]  # (chance, decision) nodes per depth, deepest first
+    up: list[int]  # parent node of every node (-1 for the root)
+    via: list[int]  # the branch into every node (-1 for the root)
+
+
+@dataclass
+class ListRollback:
+    """``flattree.Rollback`` as lists."""
+
+    value: list[float]
+    best: list[int]
+    tie: list[bool]
+    expected: list[float] | None = None
+
+
+def as_lists(tree: FlatTree, risk_tolerance: float | None) -> ListTree | None:
+    """The tree as lists when this module evaluates it (see the module docstring), else None."""
+    if tree.size > LIST_PATH_NODES:
+        return None
+    if risk_tolerance is not None and not risk_tolerance < _AMOUNT_BOUND:
+        return None
+    count = tree.branch_count.tolist()
+    if max(count) > MAX_LIST_WIDTH:
+        return None
+    payoff, cash = tree.payoff.tolist(), tree.cash.tolist()
+    if not sum(map(abs, payoff)) + sum(map(abs, cash)) < _AMOUNT_BOUND:
+        return None
+    kind, depth = tree.kind.tolist(), tree.depth.tolist()
+    parent, child = tree.parent.tolist(), tree.child.tolist()
+    levels: list[tuple[list[int], list[int]]] = [([], []) for _ in range(max(depth) + 1)]
+    for i, k in enumerate(kind):
+        if k != END:
+            levels[depth[i]][k == DECISION].append(i)
+    while levels and not levels[-1][0] and not levels[-1][1]:
+        levels.pop()
+    up = [-1] * tree.size
+    via = [-1] * tree.size
+    for b, (p, c) in enumerate(zip(parent, child, strict=True)):
+        up[c] = p
+        via[c] = b
+    return ListTree(tree.objective, tree.sign, tree.root, tree.size, tree.ids, tree.names, tree.labels,
+                    kind, payoff, depth, parent, child, tree.prob.tolist(), cash,
+                    tree.first_branch.tolist(), count, _cash_is_identity(tree.cash, tree.payoff),
+                    levels[::-1], up, via)
+
+
+# -- numpy's orders of operations, restated ---------------------------------------------------
+
+
+def _reduceat_sum(x: list[float]) -> float:
+    """``np.add.reduceat`` over one run: the first element plus the sum of the rest, which
+    numpy starts from -0.0 and adds left to right below 8 terms (x + -0.0 is x, so a run
+    of one is its element). Runs are never longer than ``MAX_LIST_WIDTH`` here: a node has
+    at most that many branches, and each child's outcomes are merged already, so equal
+    outcomes gather at most one from each branch."""
+    total = -0.0
+    for v in x[1:]:
+        total += v
+    return x[0] + total
+
+
+def _max(x: list[float]) -> float:
+    """``np.maximum`` folded left to right: on equal values the later one (0.0 vs -0.0)."""
+    top = x[0]
+    for v in x[1:]:
+        if not top > v:
+            top = v
+    return top
+
+
+def _min(x: list[float]) -> float:
+    """``np.minimum`` folded left to right, as ``_max``."""
+    low = x[0]
+    for v in x[1:]:
+        if not low < v:
+            low = v
+    return low
+
+
+def _same(a: float, b: float) -> bool:
+    """Equal to the last bit (0.0 and -0.0 differ; NaN cannot occur here)."""
+    return a == b and math.copysign(1.0, a) == math.copysign(1.0, b)
+
+
+# -- rollback (twin of flattree.rollback) ------------------------------------------------------
+
+
+def rollback(lt: ListTree, risk_tolerance: float | None = None) -> ListRollback:
+    """``flattree.rollback``: chance nodes add ``p * value`` left to right (or take the
+    certainty equivalent), decision nodes take the first branch within the tie tolerance."""
+    r = risk_tolerance
+    kind, child, prob, cash = lt.kind, lt.child, lt.prob, lt.cash
+    first, count = lt.first_branch, lt.branch_count
+    value = [p if k == END else 0.0 for k, p in zip(kind, lt.payoff, strict=True)]
+    expected = value.copy() if r else None
+    best = [-1] * lt.size
+    tie = [False] * lt.size
+    skip = lt.skip_cash
+    for chance, decision in lt.levels:
+        if r:
+            _chance_ce_level(lt, chance, value, r)
+            for i in chance:
+                f = first[i]
+                total = prob[f] * (expected[child[f]] if skip else cash[f] + expected[child[f]])
+                for b in range(f + 1, f + count[i]):
+                    total += prob[b] * (expected[child[b]] if skip else cash[b] + expected[child[b]])
+                expected[i] = total
+        else:
+            for i in chance:
+                f = first[i]
+                total = prob[f] * (value[child[f]] if skip else cash[f] + value[child[f]])
+                for b in range(f + 1, f + count[i]):
+                    total += prob[b] * (value[child[b]] if skip else cash[b] + value[child[b]])
+                value[i] = total
+        for i in decision:
+            f = first[i]
+            bv = [value[child[b]] if skip else cash[b] + value[child[b]] for b in range(f, f + count[i])]
+            top = _max(bv)
+            a = abs(top)
+            threshold = top - TIE_TOLERANCE * (1.0 if a < 1.0 else a)
+            near = [j for j, v in enumerate(bv) if v >= threshold]
+            value[i] = top
+            best[i] = f + near[0]
+            tie[i] = len(near) > 1
+            if expected is not None:
+                b = f + near[0]
+                expected[i] = expected[child[b]] if skip else cash[b] + expected[child[b]]
+    return ListRollback(value, best, tie, expected)
+
+
+def _chance_ce_level(lt: ListTree, nodes: list[int], value: list[float], r: float) -> None:
+    """``flattree._chance_ce`` for the chance nodes of one depth: one np.exp, one np.log."""
+    if not nodes:
+        return
+    child, prob, cash, first, count, skip = (lt.child, lt.prob, lt.cash, lt.first_branch,
+                                             lt.branch_count, lt.skip_cash)
+    lows, exponents = [], []
+    for i in nodes:
+        f = first[i]
+        bv = [value[child[b]] if skip else cash[b] + value[child[b]] for b in range(f, f + count[i])]
+        p = prob[f:f + count[i]]
+        m = _min([v if q > 0 else _INF for v, q in zip(bv, p, strict=True)])
+        lows.append(m)
+        exponents += [-(v - m) / r if q > 0 else -_INF for v, q in zip(bv, p, strict=True)]
+    e = np.exp(exponents).tolist()
+    totals = []
+    pos = 0
+    for i in nodes:
+        f = first[i]
+        total = prob[f] * e[pos]
+        for j in range(1, count[i]):
+            total += prob[f + j] * e[pos + j]
+        totals.append(total)
+        pos += count[i]
+    for i, m, log_total in zip(nodes, lows, np.log(totals).tolist(), strict=True):
+        value[i] = m - r * log_total
+
+
+# -- plan reach and risk profile (twin of flattree.reach_probabilities) ------------------------
+
+
+def risk_profile(lt: ListTree, rb: ListRollback) -> dict:
+    """``tree_eval.risk_profile``: probability of reaching each end node under the plan."""
+    kind, parent, child, prob, cash, best = lt.kind, lt.parent, lt.child, lt.prob, lt.cash, rb.best
+    reach = [0.0] * lt.size
+    acc = [0.0] * lt.size
+    reach[lt.root] = 1.0
+    # Branches are ordered by the depth of their parent, so a parent is reached first.
+    for b, (par, ch) in enumerate(zip(parent, child, strict=True)):
+        if kind[par] == DECISION:
+            reach[ch] = reach[par] * (1.0 if best[par] == b else 0.0)
+        else:
+            reach[ch] = reach[par] * prob[b]
+        acc[ch] = acc[par] + cash[b]
+    ends = [i for i, k in enumerate(kind) if k == END and reach[i] > 0]
+    sign, payoff = lt.sign, lt.payoff
+    values = [sign * (acc[i] + payoff[i]) for i in ends]
+    return profile_from_outcomes(values, [reach[i] for i in ends], lt.objective)
+
+
+# -- clairvoyant value (twin of tree_eval.clairvoyant_value) -----------------------------------
+
+
+def clairvoyant_value(lt: ListTree, risk_tolerance: float | None = None) -> float:
+    """``tree_eval.clairvoyant_value``: the value distribution of every node, deepest first."""
+    if lt.kind[lt.root] == END:
+        v, p = [lt.payoff[lt.root]], [1.0]
+    else:
+        runs: dict[int, tuple[list[float], list[float]]] = {}
+        for chance, decision in lt.levels:
+            _level_distributions(lt, sorted(chance + decision), runs)
+        v, p = runs.get(lt.root, ([], []))
+    if risk_tolerance:
+        return certainty_equivalent(v, p, risk_tolerance)
+    return float(np.dot(np.array(v, dtype=float), np.array(p, dtype=float)))
+
+
+def _level_distributions(lt: ListTree, owners: list[int], runs: dict) -> None:
+    """``tree_eval._next_level``: each owner's outcomes sorted by value, equal values merged.
+
+    A chance owner's mass at a value is the ``np.add.reduceat`` sum of its entries there.
+    A decision owner's is ``tree_eval._max_pmf``'s: the step of the product over its
+    branches j of P(branch j <= value), where numpy takes P(branch j <= value) as a
+    difference of running sums of the entries of branch position j over the whole level
+    (every owner's, in owner then value order). ``run`` keeps those running sums, fed
+    the same terms in the same order; numpy also adds the zeros of the other positions,
+    which changes no sum that is not zero, and a zero mass is dropped either way.
+    """
+    kind, payoff, child, prob, cash = lt.kind, lt.payoff, lt.child, lt.prob, lt.cash
+    first, count = lt.first_branch, lt.branch_count
+    coupled = any(kind[o] == DECISION for o in owners)
+    run = [0.0] * MAX_LIST_WIDTH
+    for o in owners:
+        f, c = first[o], count[o]
+        is_chance = kind[o] == CHANCE
+        entries: list[tuple[float, float, int]] = []  # (value, probability, branch position)
+        for j in range(c):
+            b = f + j
+            ch = child[b]
+            cb = cash[b]
+            if kind[ch] == END:
+                entries.append((payoff[ch] + cb, prob[b] if is_chance else 1.0, j))
+            elif ch in runs:
+                cv, cp = runs[ch]
+                if is_chance:
+                    pb = prob[b]
+                    entries += [(v + cb, q * pb, j) for v, q in zip(cv, cp, strict=True)]
+                else:
+                    entries += [(v + cb, q, j) for v, q in zip(cv, cp, strict=True)]
+        if not entries:
+            continue
+        entries.sort(key=_value_of)  # stable, as numpy's lexsort
+        out_v: list[float] = []
+        out_p: list[float] = []
+        if is_chance:
+            for v, group in groupby(entries, _value_of):
+                g = list(group)
+                mass = g[0][1] if len(g) == 1 else _reduceat_sum([e[1] for e in g])
+                if mass > 0:
+                    out_v.append(v)
+                    out_p.append(mass)
+            if coupled:
+                for _, q, j in entries:
+                    run[j] += q
+        else:
+            before = run[:c]
+            previous = None
+            for v, group in groupby(entries, _value_of):
+                for _, q, j in group:
+                    run[j] += q
+                cdf = 1.0
+                for j in range(c):
+                    cdf *= run[j] - before[j]
+                mass = cdf if previous is None else cdf - previous
+                if mass > 0:
+                    out_v.append(v)
+                    out_p.append(mass)
+                previous = cdf
+        if out_v:
+            runs[o] = (out_v, out_p)
+
+
+# -- value of learning one chance node (twin of tree_eval.learning_values) ---------------------
+
+
+def chance_nodes_by_depth(lt: ListTree) -> list[int]:
+    """Chance nodes, the shallowest first, document order within a depth (a stable sort)."""
+    chance = [i for i, k in enumerate(lt.kind) if k == CHANCE]
+    chance.sort(key=lt.depth.__getitem__)
+    return chance
+
+
+def learning_values(lt: ListTree, nodes: list[int], base_value: float,
+                    risk_tolerance: float | None = None) -> list[float]:
+    """``tree_eval.learning_values``: for each chance node, each outcome revealed in turn.
+
+    The array code rolls the whole tree back once per revealed outcome (``_root_values``,
+    whose sums are ``np.add.reduceat``'s). Revealing node k changes only the values of k
+    and of its ancestors, so here the tree is rolled back once that same way, and each
+    revealed outcome recomputes k and then its ancestors only, and stops as soon as a
+    value comes out the same to the last bit (nothing above it can change then).
+    """
+    r = risk_tolerance
+    if not nodes:
+        return []
+    base, branch_values = _root_values(lt, r)
+    prob, first = lt.prob, lt.first_branch
+    if r:
+        rows = []  # per revealed outcome: [index in nodes, its probability, node, the node's value]
+        for k, node in enumerate(nodes):
+            f = first[node]
+            # A single branch of probability 1 is left, whose certainty equivalent is its
+            # value (m is that value, exp(-0.0) = 1.0, log(1.0) = 0.0, m - r * 0.0 = m).
+            rows += [[k, prob[f + j], node, v] for j, v in enumerate(branch_values[node])
+                     if prob[f + j] > 0]
+        _walk_up_together(lt, base, branch_values, rows, r)
+        return [max(0.0, certainty_equivalent([row[3] for row in rows if row[0] == k],
+                                               [row[1] for row in rows if row[0] == k], r) - base_value)
+                for k in range(len(nodes))]
+    out = []
+    for node in nodes:
+        f = first[node]
+        bv = branch_values[node]
+        with_info = 0.0  # np.bincount's sum: from 0.0, in row order
+        for j in range(len(bv)):
+            q = prob[f + j]
+            if q > 0:
+                # The node's probabilities become 1 for branch j and 0 elsewhere; the zeros
+                # they add change a sum that is not zero by nothing.
+                x = bv[j]
+                revealed = x if x != 0 else _reduceat_sum([(1.0 if i == j else 0.0) * y
+                                                           for i, y in enumerate(bv)])
+                with_info += q * _walk_up(lt, base, branch_values, node, revealed)
+        out.append(max(0.0, with_info - base_value))
+    return out
+
+
+def _root_values(lt: ListTree, r: float | None) -> tuple[list[float], list]:
+    """Every node's value as ``tree_eval._root_values`` computes it (cash always added,
+    chance sums as ``np.add.reduceat``, certainty equivalents as there), and the values
+    of every node's branches (cash plus child value; None for end nodes)."""
+    child, prob, cash, first, count = lt.child, lt.prob, lt.cash, lt.first_branch, lt.branch_count
+    value = [p if k == END else 0.0 for k, p in zip(lt.kind, lt.payoff, strict=True)]
+    branch_values: list = [None] * lt.size
+    for chance, decision in lt.levels:
+        for i in chance:
+            f = first[i]
+            branch_values[i] = [cash[b] + value[child[b]] for b in range(f, f + count[i])]
+        if r:
+            for i, v in zip(chance, _ce_values(lt, chance, [branch_values[i] for i in chance], r),
+                            strict=True):
+                value[i] = v
+        else:
+            for i in chance:
+                f = first[i]
+                value[i] = _reduceat_sum([p * v for p, v in zip(prob[f:f + count[i]], branch_values[i],
+                                                                 strict=True)])
+        for i in decision:
+            f = first[i]
+            bv = [cash[b] + value[child[b]] for b in range(f, f + count[i])]
+            branch_values[i] = bv
+            value[i] = _max(bv)
+    return value, branch_values
+
+
+def _new_value(lt: ListTree, branch_values: list, node: int, v: float) -> tuple[int, list[float]]:
+    """``node``'s parent and its branch values once ``node`` is valued ``v``."""
+    parent = lt.up[node]
+    b = lt.via[node]
+    bv = branch_values[parent].copy()
+    bv[b - lt.first_branch[parent]] = lt.cash[b] + v
+    return parent, bv
+
+
+def _walk_up(lt: ListTree, base: list[float], branch_values: list, node: int, v: float) -> float:
+    """The root's value once ``node`` is valued ``v`` (expected values)."""
+    root, up, via, kind, prob, cash, first = (lt.root, lt.up, lt.via, lt.kind, lt.prob, lt.cash,
+                                              lt.first_branch)
+    copysign = math.copysign
+    while node != root:
+        old = base[node]
+        if v == old and copysign(1.0, v) == copysign(1.0, old):
+            return base[root]  # the same to the last bit: nothing above changes
+        parent = up[node]
+        b = via[node]
+        f = first[parent]
+        bv = branch_values[parent].copy()
+        bv[b - f] = cash[b] + v
+        if kind[parent] == DECISION:
+            v = _max(bv)
+        else:
+            v = _reduceat_sum([p * x for p, x in zip(prob[f:f + len(bv)], bv, strict=True)])
+        node = parent
+    return v
+
+
+def _ce_values(lt: ListTree, nodes: list[int], bvs: list[list[float]], r: float) -> list[float]:
+    """Certainty equivalents of chance nodes from their branch values, as ``_root_values``
+    takes them: one np.exp and one np.log for all of them."""
+    prob, first = lt.prob, lt.first_branch
+    lows, exponents = [], []
+    for i, bv in zip(nodes, bvs, strict=True):
+        p = prob[first[i]:first[i] + len(bv)]
+        m = _min([v if q > 0 else _INF for v, q in zip(bv, p, strict=True)])
+        lows.append(m)
+        exponents += [-(v - m) / r for v, q in zip(bv, p, strict=True) if q > 0]
+    e = iter(np.exp(exponents).tolist())
+    totals = []
+    for i, bv in zip(nodes, bvs, strict=True):
+        p = prob[first[i]:first[i] + len(bv)]
+        totals.append(_reduceat_sum([q * (next(e) if q > 0 else 0.0) for q in p]))
+    return [m - r * log_total for m, log_total in zip(lows, np.log(totals).tolist(), strict=True)]
+
+
+def _walk_up_together(lt: ListTree, base: list[float], branch_values: list, rows: list,
+                      r: float) -> None:
+    """``_walk_up`` under a risk tolerance, for all rows at once and one depth at a time,
+    so that the certainty equivalents of a depth take one np.exp and one np.log. In
+    place: each row ends with the root's value in ``row[3]``."""
+    depth, kind, root = lt.depth, lt.kind, lt.root
+    live = []
+    for row in rows:
+        if row[2] == root:
+            continue
+        if _same(row[3], base[row[2]]):
+            row[2], row[3] = root, base[root]
+        else:
+            live.append(row)
+    while live:
+        d = max(depth[row[2]] for row in live)
+        moving = [row for row in live if depth[row[2]] == d]
+        chance_rows, chance_bvs = [], []
+        for row in moving:
+            parent, bv = _new_value(lt, branch_values, row[2], row[3])
+            row[2] = parent
+            if kind[parent] == DECISION:
+                row[3] = _max(bv)
+            else:
+                chance_rows.append(row)
+                chance_bvs.append(bv)
+        if chance_rows:
+            new = _ce_values(lt, [row[2] for row in chance_rows], chance_bvs, r)
+            for row, v in zip(chance_rows, new, strict=True):
+                row[3] = v
+        for row in moving:
+            if row[2] != root and _same(row[3], base[row[2]]):
+                row[2], row[3] = root, base[root]
+        live = [row for row in live if row[2] != root]

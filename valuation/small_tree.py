@@ -145,20 +145,24 @@ def _reduceat_sum(x: list[float]) -> float:
 
 
 def _max(x: list[float]) -> float:
-    """``np.maximum`` folded left to right: on equal values the later one (0.0 vs -0.0)."""
-    top = x[0]
-    for v in x[1:]:
-        if not top > v:
-            top = v
+    """``np.maximum`` folded left to right: of equal values the later one. Only 0.0 and
+    -0.0 are equal without being the same bits, so Python's ``max`` (which keeps the
+    earlier) is right unless the best value is a zero."""
+    top = max(x)
+    if top == 0:
+        for v in x:
+            if not top > v:
+                top = v
     return top
 
 
 def _min(x: list[float]) -> float:
     """``np.minimum`` folded left to right, as ``_max``."""
-    low = x[0]
-    for v in x[1:]:
-        if not low < v:
-            low = v
+    low = min(x)
+    if low == 0:
+        for v in x:
+            if not low < v:
+                low = v
     return low
 
 
@@ -418,13 +422,17 @@ def _root_values(lt: ListTree, r: float | None) -> tuple[list[float], list]:
         else:
             for i in chance:
                 f = first[i]
-                value[i] = _reduceat_sum([p * v for p, v in zip(prob[f:f + count[i]], branch_values[i],
-                                                                 strict=True)])
+                bv = branch_values[i]
+                total = -0.0
+                for j in range(1, len(bv)):
+                    total += prob[f + j] * bv[j]
+                value[i] = prob[f] * bv[0] + total  # np.add.reduceat: see _reduceat_sum
         for i in decision:
             f = first[i]
             bv = [cash[b] + value[child[b]] for b in range(f, f + count[i])]
             branch_values[i] = bv
-            value[i] = _max(bv)
+            top = max(bv)
+            value[i] = top if top != 0 else _max(bv)
     return value, branch_values
 
 
@@ -441,10 +449,9 @@ def _walk_up(lt: ListTree, base: list[float], branch_values: list, node: int, v:
     """The root's value once ``node`` is valued ``v`` (expected values)."""
     root, up, via, kind, prob, cash, first = (lt.root, lt.up, lt.via, lt.kind, lt.prob, lt.cash,
                                               lt.first_branch)
-    copysign = math.copysign
     while node != root:
         old = base[node]
-        if v == old and copysign(1.0, v) == copysign(1.0, old):
+        if v == old and (v != 0 or math.copysign(1.0, v) == math.copysign(1.0, old)):
             return base[root]  # the same to the last bit: nothing above changes
         parent = up[node]
         b = via[node]
@@ -452,9 +459,14 @@ def _walk_up(lt: ListTree, base: list[float], branch_values: list, node: int, v:
         bv = branch_values[parent].copy()
         bv[b - f] = cash[b] + v
         if kind[parent] == DECISION:
-            v = _max(bv)
+            v = max(bv)
+            if v == 0:
+                v = _max(bv)
         else:
-            v = _reduceat_sum([p * x for p, x in zip(prob[f:f + len(bv)], bv, strict=True)])
+            total = -0.0
+            for j in range(1, len(bv)):
+                total += prob[f + j] * bv[j]
+            v = prob[f] * bv[0] + total  # np.add.reduceat: see _reduceat_sum
         node = parent
     return v
 

@@ -299,16 +299,40 @@ def _level_distributions(lt: ListTree, owners: list[int], runs: dict) -> None:
     first, count = lt.first_branch, lt.branch_count
     coupled = any(kind[o] == DECISION for o in owners)
     run = [0.0] * MAX_LIST_WIDTH
+    whole = True  # every running sum is still a whole number
     for o in owners:
         f, c = first[o], count[o]
         is_chance = kind[o] == CHANCE
-        entries: list[tuple[float, float, int]] = []  # (value, probability, branch position)
+        if whole and not is_chance:
+            # A decision between end nodes while the running sums are whole numbers: each
+            # P(branch <= value) comes out exactly 0.0 or 1.0 (a whole number plus 1.0,
+            # less itself, is exact), so the product is 0.0 below the best value and 1.0
+            # at it: one outcome, the best value (the first branch to reach it, as the
+            # stable sort puts it first), of probability 1.0.
+            values = []
+            for b in range(f, f + c):
+                if kind[child[b]] != END:
+                    break
+                values.append(payoff[child[b]] + cash[b])
+            else:
+                top = max(values)
+                for v in values:
+                    if v == top:
+                        break
+                runs[o] = ([v], [1.0])
+                for j in range(c):
+                    run[j] += 1.0
+                continue
+        whole = False
+        # (value, probability, branch position) of every outcome of the branches, in order
+        # (inline: a call per node costs more than the work on a node of a few branches).
+        entries: list[tuple[float, float, int]] = []
         for j in range(c):
             b = f + j
             ch = child[b]
             cb = cash[b]
             if kind[ch] == END:
-                entries.append((payoff[ch] + cb, prob[b] if is_chance else 1.0, j))
+                entries.append((payoff[ch] + cb, prob[b] if is_chance else 1.0, j))  # 1.0 * p
             elif ch in runs:
                 cv, cp = runs[ch]
                 if is_chance:
@@ -319,34 +343,54 @@ def _level_distributions(lt: ListTree, owners: list[int], runs: dict) -> None:
         if not entries:
             continue
         entries.sort(key=_value_of)  # stable, as numpy's lexsort
-        out_v: list[float] = []
-        out_p: list[float] = []
         if is_chance:
-            for v, group in groupby(entries, _value_of):
-                g = list(group)
-                mass = g[0][1] if len(g) == 1 else _reduceat_sum([e[1] for e in g])
-                if mass > 0:
-                    out_v.append(v)
-                    out_p.append(mass)
             if coupled:
                 for _, q, j in entries:
                     run[j] += q
+            values, masses = _merged(entries)
         else:
-            before = run[:c]
-            previous = None
-            for v, group in groupby(entries, _value_of):
-                for _, q, j in group:
-                    run[j] += q
-                cdf = 1.0
-                for j in range(c):
-                    cdf *= run[j] - before[j]
-                mass = cdf if previous is None else cdf - previous
-                if mass > 0:
-                    out_v.append(v)
-                    out_p.append(mass)
-                previous = cdf
-        if out_v:
-            runs[o] = (out_v, out_p)
+            values, masses = _best_of(entries, run, c)
+        if values:
+            runs[o] = (values, masses)
+
+
+def _merged(entries: list[tuple[float, float, int]]) -> tuple[list[float], list[float]]:
+    """A chance node's sorted outcomes with equal values merged (the first one's bits
+    kept, masses added as ``np.add.reduceat`` adds them), outcomes of no mass left out."""
+    if len(entries) == len({e[0] for e in entries}):  # no two equal (0.0 == -0.0 in a set too)
+        return [e[0] for e in entries if e[1] > 0], [e[1] for e in entries if e[1] > 0]
+    values: list[float] = []
+    masses: list[float] = []
+    for v, group in groupby(entries, _value_of):
+        g = list(group)
+        mass = g[0][1] if len(g) == 1 else _reduceat_sum([e[1] for e in g])
+        if mass > 0:
+            values.append(v)
+            masses.append(mass)
+    return values, masses
+
+
+def _best_of(entries: list[tuple[float, float, int]], run: list[float],
+             c: int) -> tuple[list[float], list[float]]:
+    """A decision node's outcomes once every chance node is known: the distribution of
+    the best of its ``c`` branches, from its sorted entries and the level's running sums
+    (see ``_level_distributions``)."""
+    values: list[float] = []
+    masses: list[float] = []
+    before = run[:c]
+    previous = None
+    for v, group in groupby(entries, _value_of):
+        for _, q, j in group:
+            run[j] += q
+        cdf = 1.0
+        for j in range(c):
+            cdf *= run[j] - before[j]
+        mass = cdf if previous is None else cdf - previous
+        if mass > 0:
+            values.append(v)
+            masses.append(mass)
+        previous = cdf
+    return values, masses
 
 
 # -- value of learning one chance node (twin of tree_eval.learning_values) ---------------------

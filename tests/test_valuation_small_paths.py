@@ -14,6 +14,7 @@ as installed); a helper that summed left to right instead fails them (the inputs
 chosen so that the two orders differ, and the test says so).
 """
 
+import copy
 import json
 import random
 import struct
@@ -30,7 +31,7 @@ from tests.benchmarks.bench_inputs import alternating_tree
 from valuation import small_tree
 from valuation.checks import Problems
 from valuation.evaluate import parse
-from valuation.flattree import CHANCE, _walk_arrays, _walk_lists, build_tree, rollback
+from valuation.flattree import CHANCE, _build_fast, _walk_arrays, _walk_lists, build_tree, rollback
 from valuation.tree_eval import clairvoyant_value, learning_values, risk_profile
 
 SETTINGS = settings(max_examples=120, deadline=None, derandomize=True,
@@ -328,3 +329,26 @@ def test_trees_the_lists_decline():
     assert small_tree.as_lists(parse(huge), None) is None  # sums could overflow
     assert_same_document(wide, None)
     assert_same_document(huge, 5.0)
+
+
+@pytest.mark.parametrize("size", [7, 40])
+def test_the_one_pass_reader_declines_on_small_trees_what_the_validating_reader_refuses(size):
+    """The small-input shortcuts of the one-pass reader (one set for repeated labels,
+    Python's len for name lengths) refuse what the validating reader refuses."""
+    doc = alternating_tree(size, seed=3)
+    bad = [("nodes", 0, "branches", 1, "label", "b0"), ("nodes", 0, "branches", 0, "label", ""),
+           ("nodes", 0, "branches", 0, "label", "x" * 201), ("nodes", 0, "branches", 2, "label", "\t")]
+    for *path, value in bad:
+        changed = copy.deepcopy(doc)
+        target = changed
+        for key in path[:-1]:
+            target = target[key]
+        target[path[-1]] = value
+        assert _build_fast(changed) is None, path
+        assert build_tree(changed, Problems()) is None, path
+    for new_id in ("y" * 201, ""):  # node n1 renamed, and the branch to it too
+        changed = json.loads(json.dumps(doc).replace('"n1"', json.dumps(new_id)))
+        assert _build_fast(changed) is None, new_id
+        assert build_tree(changed, Problems()) is None, new_id
+    assert _build_fast(doc) is not None
+    assert _build_fast(json.loads(json.dumps(doc).replace('"n1"', json.dumps("y" * 200)))) is not None

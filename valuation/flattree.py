@@ -249,8 +249,7 @@ def _names_ok(values: list) -> bool:
         return True
     if set(map(type, values)) != {str}:
         return False
-    lengths = np.fromiter(map(len, values), dtype=np.int64, count=len(values))
-    if int(lengths.min()) == 0 or int(lengths.max()) > MAX_NAME_LENGTH:
+    if "" in values or max(map(len, values)) > MAX_NAME_LENGTH:
         return False
     return "\x00" not in "".join(values) and not any(map(str.isspace, values))
 
@@ -382,6 +381,10 @@ def _repeated_label(parent: np.ndarray, code: np.ndarray, count: np.ndarray, use
     distinct = len(used)
     if distinct == len(code):
         return False
+    if len(code) <= 128:
+        # Fewer distinct (node, label) pairs than branches. Up to about a hundred branches
+        # one set costs less than the numpy calls below (beyond, it costs more).
+        return len(set(zip(parent.tolist(), code.tolist(), strict=True))) != len(code)
     dense = np.zeros(len(code), dtype=np.int64)
     dense[used] = np.arange(distinct)
     code = dense[code]  # numbers 0 .. distinct - 1

@@ -98,10 +98,11 @@ def node_details(tree: FlatTree, rb: Rollback, risk_tolerance) -> dict:
     out = {}
     for i, nid in enumerate(tree.ids):
         k = kind[i]
-        entry = {"kind": _KIND_NAMES[k], "name": names[i], "value": float(sign * shown[i]),
+        # Python floats (the lists hold them), so no float() is needed.
+        entry = {"kind": _KIND_NAMES[k], "name": names[i], "value": sign * shown[i],
                  "best_branch": None, "pruned": []}
         if ce is not None:
-            entry["certainty_equivalent"] = float(sign * ce[i])
+            entry["certainty_equivalent"] = sign * ce[i]
         if k == DECISION:
             b = best[i]
             entry["best_branch"] = labels[b]
@@ -133,16 +134,16 @@ def profile_from_outcomes(values, probs, objective: str, max_points: int = 5000)
         # Keep the chart readable: merge neighbouring outcomes into equal-count groups.
         uniq, mass = _merge_groups(uniq, mass, max_points)
         note = f"outcomes merged into {max_points} groups for display"
-    cumulative = np.cumsum(mass)
+    cumulative = np.cumsum(mass).tolist()
     expected = float(np.dot(values, probs))
+    points, masses = uniq.tolist(), mass.tolist()  # Python floats: no conversion per point
     out = {
-        "outcomes": [{"value": float(v), "probability": float(p)} for v, p in zip(uniq, mass,
-                                                                                     strict=True)],
-        "cumulative": [{"value": float(v), "probability": float(min(1.0, c))}
-                       for v, c in zip(uniq, cumulative, strict=True)],
+        "outcomes": [{"value": v, "probability": p} for v, p in zip(points, masses, strict=True)],
+        "cumulative": [{"value": v, "probability": min(1.0, c)}
+                       for v, c in zip(points, cumulative, strict=True)],
         "probability_of_loss": float(mass[uniq < 0].sum()) if objective == "max" else None,
-        "worst": float(uniq[0] if objective == "max" else uniq[-1]),
-        "best": float(uniq[-1] if objective == "max" else uniq[0]),
+        "worst": points[0] if objective == "max" else points[-1],
+        "best": points[-1] if objective == "max" else points[0],
         "expected": expected,
     }
     if note:

@@ -335,7 +335,9 @@ def _level_distributions(lt: ListTree, owners: list[int], runs: dict) -> None:
                 entries.append((payoff[ch] + cb, prob[b] if is_chance else 1.0, j))  # 1.0 * p
             elif ch in runs:
                 cv, cp = runs[ch]
-                if is_chance:
+                if len(cv) == 1:
+                    entries.append((cv[0] + cb, cp[0] * prob[b] if is_chance else cp[0], j))
+                elif is_chance:
                     pb = prob[b]
                     entries += [(v + cb, q * pb, j) for v, q in zip(cv, cp, strict=True)]
                 else:
@@ -357,8 +359,9 @@ def _level_distributions(lt: ListTree, owners: list[int], runs: dict) -> None:
 def _merged(entries: list[tuple[float, float, int]]) -> tuple[list[float], list[float]]:
     """A chance node's sorted outcomes with equal values merged (the first one's bits
     kept, masses added as ``np.add.reduceat`` adds them), outcomes of no mass left out."""
-    if len(entries) == len({e[0] for e in entries}):  # no two equal (0.0 == -0.0 in a set too)
-        return [e[0] for e in entries if e[1] > 0], [e[1] for e in entries if e[1] > 0]
+    values, masses, _ = zip(*entries, strict=True)
+    if len(set(values)) == len(values) and min(masses) > 0:  # (0.0 == -0.0 in a set too)
+        return list(values), list(masses)
     values: list[float] = []
     masses: list[float] = []
     for v, group in groupby(entries, _value_of):
@@ -374,14 +377,21 @@ def _best_of(entries: list[tuple[float, float, int]], run: list[float],
              c: int) -> tuple[list[float], list[float]]:
     """A decision node's outcomes once every chance node is known: the distribution of
     the best of its ``c`` branches, from its sorted entries and the level's running sums
-    (see ``_level_distributions``)."""
+    (see ``_level_distributions``). While some branch has no outcome yet, its difference
+    is exactly 0.0 (a sum less itself), so is the product, and no mass is left: the
+    product is only worked out from the value at which every branch has appeared."""
     values: list[float] = []
     masses: list[float] = []
     before = run[:c]
+    unseen = set(range(c))
     previous = None
     for v, group in groupby(entries, _value_of):
         for _, q, j in group:
             run[j] += q
+            unseen.discard(j)
+        if unseen:
+            previous = 0.0
+            continue
         cdf = 1.0
         for j in range(c):
             cdf *= run[j] - before[j]

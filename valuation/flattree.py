@@ -39,10 +39,11 @@ from valuation.table import COMMON_FIELDS, check_common
 __all__ = ["FlatTree", "Rollback", "build_tree", "rollback", "reach_probabilities", "spans"]
 
 END, CHANCE, DECISION = 0, 1, 2
-#: Trees of at most this many nodes are walked with Python lists rather than numpy
-#: arrays where a walk costs a fixed number of numpy calls per level or per node
-#: (each a few microseconds): below it the lists are faster, above it the arrays.
-LIST_WALK_NODES = 2000
+#: Trees of at most this many nodes are walked level by level with Python lists rather
+#: than numpy arrays (a few numpy calls per level, each a few microseconds): on bushy
+#: trees the lists take half the time at 200 nodes, 0.84 of it at 364, 1.5 times it
+#: at 600 (alternating_tree, 2026-12); on deep narrow trees they gain more.
+LIST_WALK_NODES = 400
 _KINDS = {"end": END, "chance": CHANCE, "decision": DECISION}
 _TREE_FIELDS = COMMON_FIELDS | {"root", "nodes"}
 _NODE_FIELDS = frozenset({"id", "kind", "name", "branches", "payoff", "time", "description"})

@@ -36,18 +36,21 @@ from operator import itemgetter
 import numpy as np
 
 from valuation.flattree import CHANCE, DECISION, END, FlatTree, _cash_is_identity
-from valuation.limits import TIE_TOLERANCE
+from valuation.limits import INFORMATION_NODE_LIMIT, TIE_TOLERANCE
 from valuation.tree_eval import profile_from_outcomes
 from valuation.utility import certainty_equivalent
 
 __all__ = ["LIST_PATH_NODES", "LIST_CLAIRVOYANT_NODES", "ListTree", "ListRollback", "as_lists",
            "rollback", "clairvoyant_value", "learning_values", "risk_profile", "chance_nodes_by_depth"]
 
-#: Trees of at most this many nodes are evaluated here (measured crossover: see the
-#: commit that set it; the array code wins on larger trees).
-LIST_PATH_NODES = 2000
-#: ... and their clairvoyant value up to this many nodes (its lists grow with the
-#: number of outcomes, and the array code catches up sooner).
+#: Trees of at most this many nodes are evaluated here. The lists pay most through the
+#: value of learning, which is only worked out up to INFORMATION_NODE_LIMIT nodes: the
+#: whole evaluation took 0.72-0.80 of the array time from 600 to 5,000 nodes, and 1.4
+#: times it beyond, where the value of learning is left out (alternating_tree, 2026-12).
+LIST_PATH_NODES = INFORMATION_NODE_LIMIT
+#: ... and their clairvoyant value up to this many nodes: its lists grow with the
+#: number of outcomes and the arrays catch up near 500 nodes (0.5 of their time at
+#: 300 nodes, 1.3 times it at 600).
 LIST_CLAIRVOYANT_NODES = 400
 #: Longest run numpy reduces strictly left to right (see the module docstring).
 MAX_LIST_WIDTH = 8

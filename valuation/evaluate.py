@@ -302,7 +302,8 @@ def _evaluate_tree(tree: FlatTree, r) -> dict:
         out["warnings"].append(f"EVPI and the value of learning each chance node are computed "
                                f"for trees of up to {INFORMATION_NODE_LIMIT:,} nodes")
     out["risk_profile"] = risk_profile(tree, rb) if lists is None else small_tree.risk_profile(lists, rb)
-    tied = np.flatnonzero(rb.tie)[:100].tolist()
+    tied = (np.flatnonzero(rb.tie)[:100].tolist() if lists is None
+            else [i for i, t in enumerate(rb.tie) if t][:100])
     out["ties"] = [{"node": tree.ids[i], "chosen": tree.labels[int(rb.best[i])],
                     "branches": _tied_labels(view, rb, i)} for i in tied]
     if tree.size <= DETAIL_NODE_LIMIT:

@@ -301,7 +301,7 @@ def _read_columns(nodes: list, root_id: str, common) -> FlatTree | None:
     objective, rate = common[2], common[3]
     get = dict.get
     n = len(nodes)
-    if set(map(type, nodes)) != {dict} or not set(chain.from_iterable(nodes)) <= _NODE_FIELDS:
+    if set(map(type, nodes)) != {dict} or not set().union(*nodes) <= _NODE_FIELDS:
         return None
     ids = list(map(get, nodes, repeat("id")))
     if not _names_ok(ids):
@@ -331,7 +331,7 @@ def _read_columns(nodes: list, root_id: str, common) -> FlatTree | None:
     branches = list(chain.from_iterable(lists))
     m = len(branches)
     if m and (set(map(type, branches)) != {dict}
-              or not set(chain.from_iterable(branches)) <= _BRANCH_FIELDS):
+              or not set().union(*branches) <= _BRANCH_FIELDS):
         return None
     labels = list(map(get, branches, repeat("label")))
     # Number the distinct labels (documents repeat a handful of labels), check each

@@ -444,6 +444,7 @@ def learning_values(lt: ListTree, nodes: list[int], base_value: float,
                                                [row[1] for row in rows if row[0] == k], r) - base_value)
                 for k in range(len(nodes))]
     out = []
+    rest: dict[int, float | None] = {}  # per branch: the best of its siblings (see _walk_up)
     for node in nodes:
         f = first[node]
         bv = branch_values[node]
@@ -456,7 +457,7 @@ def learning_values(lt: ListTree, nodes: list[int], base_value: float,
                 x = bv[j]
                 revealed = x if x != 0 else _reduceat_sum([(1.0 if i == j else 0.0) * y
                                                            for i, y in enumerate(bv)])
-                with_info += q * _walk_up(lt, base, branch_values, node, revealed)
+                with_info += q * _walk_up(lt, base, branch_values, node, revealed, rest)
         out.append(max(0.0, with_info - base_value))
     return out
 
@@ -502,8 +503,14 @@ def _new_value(lt: ListTree, branch_values: list, node: int, v: float) -> tuple[
     return parent, bv
 
 
-def _walk_up(lt: ListTree, base: list[float], branch_values: list, node: int, v: float) -> float:
-    """The root's value once ``node`` is valued ``v`` (expected values)."""
+def _walk_up(lt: ListTree, base: list[float], branch_values: list, node: int, v: float,
+             rest: dict[int, float | None]) -> float:
+    """The root's value once ``node`` is valued ``v`` (expected values).
+
+    At a decision the new best is the better of the changed branch and the best of its
+    siblings, kept in ``rest`` per branch (the outcomes of one node climb the same
+    path); a best of 0 is worked out again over all branches, for the zero numpy keeps.
+    """
     root, up, via, kind, prob, cash, first = (lt.root, lt.up, lt.via, lt.kind, lt.prob, lt.cash,
                                               lt.first_branch)
     while node != root:
@@ -513,13 +520,20 @@ def _walk_up(lt: ListTree, base: list[float], branch_values: list, node: int, v:
         parent = up[node]
         b = via[node]
         f = first[parent]
-        bv = branch_values[parent].copy()
-        bv[b - f] = cash[b] + v
+        x = cash[b] + v
         if kind[parent] == DECISION:
-            v = max(bv)
+            if b not in rest:
+                siblings = branch_values[parent][:b - f] + branch_values[parent][b - f + 1:]
+                rest[b] = max(siblings) if siblings else None
+            other = rest[b]
+            v = x if other is None or x > other else other
             if v == 0:
+                bv = branch_values[parent].copy()
+                bv[b - f] = x
                 v = _max(bv)
         else:
+            bv = branch_values[parent].copy()
+            bv[b - f] = x
             total = -0.0
             for j in range(1, len(bv)):
                 total += prob[f + j] * bv[j]

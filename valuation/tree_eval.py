@@ -106,7 +106,7 @@ def node_details(tree: FlatTree, rb: Rollback, risk_tolerance) -> dict:
         if k == DECISION:
             b = best[i]
             entry["best_branch"] = labels[b]
-            entry["pruned"] = [labels[j] for j in range(first[i], first[i] + count[i]) if j != b]
+            entry["pruned"] = labels[first[i]:b] + labels[b + 1:first[i] + count[i]]
         out[nid] = entry
     return out
 

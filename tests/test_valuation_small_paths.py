@@ -33,6 +33,7 @@ from valuation.checks import Problems
 from valuation.evaluate import parse
 from valuation.flattree import CHANCE, _build_fast, _walk_arrays, _walk_lists, build_tree, rollback
 from valuation.tree_eval import clairvoyant_value, learning_values, risk_profile
+from valuation.utility import certainty_equivalent
 
 SETTINGS = settings(max_examples=120, deadline=None, derandomize=True,
                     suppress_health_check=[HealthCheck.too_slow])
@@ -282,6 +283,39 @@ def test_max_and_min_keep_the_zero_numpy_keeps(length):
         array = np.array([run])
         assert bits([small_tree._max(run)]) == bits(np.maximum.reduceat(array, [0], axis=1)[0])
         assert bits([small_tree._min(run)]) == bits(np.minimum.reduceat(array, [0], axis=1)[0])
+        assert bits([small_tree._min(run)]) == bits([np.array(run).min()])
+
+
+@pytest.mark.parametrize("length", range(1, 9))
+def test_short_sums_are_numpy_sum(length):
+    rnd = random.Random(100 + length)
+    for _ in range(300):
+        run = [rnd.choice(ZERO_HEAVY) for _ in range(length)]
+        assert bits([small_tree._sum_of_at_most_8(run)]) == bits([np.sum(np.array(run))])  # source: numpy
+
+
+def test_eight_terms_are_summed_in_pairs_as_numpy_sums_them():
+    """The check above has teeth: numpy sums 8 terms in pairs of pairs, not left to right."""
+    run = [1.0, 1e-16, 1e-16, 1e-16, 1e-16, 1e-16, 1e-16, 1e-16]
+    left_to_right = 0.0
+    for x in run:
+        left_to_right += x
+    assert small_tree._sum_of_at_most_8(run) == np.sum(np.array(run)) != left_to_right
+
+
+@pytest.mark.parametrize("r", [0.5, 80.0, 5000.0])
+def test_batched_certainty_equivalents_equal_the_utility_function(r):
+    rnd = random.Random(int(r))
+    lotteries = []
+    for _ in range(200):
+        n = rnd.randint(1, 8)
+        values = [rnd.choice([0.0, -0.0, 1.0, -3.5, 0.1, 250.0, rnd.uniform(-500, 500)]) for _ in range(n)]
+        probs = [rnd.choice([0.0, 0.1, 0.2, 1 / 3, 0.5]) for _ in range(n)]
+        probs[rnd.randrange(n)] = 0.25  # one outcome at least is possible
+        lotteries.append((values, probs))
+    batched = small_tree._certainty_equivalents(lotteries, r)
+    one_by_one = [certainty_equivalent(v, p, r) for v, p in lotteries]
+    assert bits(batched) == bits(one_by_one)
 
 
 def test_numpy_keeps_the_later_of_two_equal_zeros():

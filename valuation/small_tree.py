@@ -169,6 +169,33 @@ def _min(x: list[float]) -> float:
     return low
 
 
+def _sum_of_at_most_8(x: list[float]) -> float:
+    """``np.sum`` of at most 8 terms: 0.0 plus numpy's pairwise sum, which adds fewer than 8
+    terms left to right from -0.0 and exactly 8 as four pairs of pairs."""
+    if len(x) == 8:
+        return 0.0 + (((x[0] + x[1]) + (x[2] + x[3])) + ((x[4] + x[5]) + (x[6] + x[7])))
+    total = -0.0
+    for v in x:
+        total += v
+    return 0.0 + total
+
+
+def _certainty_equivalents(lotteries: list[tuple[list[float], list[float]]], r: float) -> list[float]:
+    """``utility.certainty_equivalent`` of several lotteries of at most 8 outcomes (each
+    with one outcome of positive probability at least), step for step, with one np.exp
+    for all of them instead of a few numpy calls each."""
+    lows, exponents, live = [], [], []
+    for values, probs in lotteries:
+        x = [v for v, p in zip(values, probs, strict=True) if p > 0]
+        m = _min(x)
+        lows.append(m)
+        exponents += [-(v - m) / r for v in x]
+        live.append([p for p in probs if p > 0])
+    e = iter(np.exp(exponents).tolist())
+    return [m - r * math.log(_sum_of_at_most_8([p * next(e) for p in ps]))
+            for m, ps in zip(lows, live, strict=True)]
+
+
 def _same(a: float, b: float) -> bool:
     """Equal to the last bit (0.0 and -0.0 differ; NaN cannot occur here)."""
     return a == b and math.copysign(1.0, a) == math.copysign(1.0, b)
@@ -440,9 +467,9 @@ def learning_values(lt: ListTree, nodes: list[int], base_value: float,
             rows += [[k, prob[f + j], node, v] for j, v in enumerate(branch_values[node])
                      if prob[f + j] > 0]
         _walk_up_together(lt, base, branch_values, rows, r)
-        return [max(0.0, certainty_equivalent([row[3] for row in rows if row[0] == k],
-                                               [row[1] for row in rows if row[0] == k], r) - base_value)
-                for k in range(len(nodes))]
+        lotteries = [([row[3] for row in rows if row[0] == k], [row[1] for row in rows if row[0] == k])
+                     for k in range(len(nodes))]
+        return [max(0.0, ce - base_value) for ce in _certainty_equivalents(lotteries, r)]
     out = []
     rest: dict[int, float | None] = {}  # per branch: the best of its siblings (see _walk_up)
     for node in nodes:

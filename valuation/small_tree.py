@@ -11,8 +11,9 @@ multiplication and division are the same in Python and numpy). Where numpy's own
 order of operations decides a result, it is restated here:
 
 - ``np.add.reduceat`` gives each run its first element plus the sum of the rest, which
-  it starts from -0.0 (``_reduceat_sum``); ``np.bincount`` with weights and
-  ``np.cumsum`` add left to right, the first from 0.0.
+  it starts from -0.0 (``_reduceat_sum``); ``np.sum`` of a few terms starts from 0.0
+  (``_sum_of_at_most_8``); ``np.bincount`` with weights adds left to right from 0.0,
+  ``np.cumsum`` from its first term.
 - ``np.maximum`` and ``np.minimum`` return their second argument when both compare
   equal (0.0 and -0.0), and so do their reductions over runs of at most 8 elements;
   over longer runs numpy regroups them. A tree with a node of more than

@@ -207,6 +207,29 @@ def test_larger_random_trees_give_the_same_document(seed, size):
         assert_same_document(doc, r)
 
 
+def _chain(levels: int) -> dict:
+    """A deep narrow tree: chance and decision nodes in turn, each with a way out to an end."""
+    nodes = []
+    for i in range(levels):
+        go = {"label": "go", "to": f"n{i + 1}", "cash_flow": (i % 7) - 3.3}
+        stop = {"label": "stop", "to": f"e{i}"}
+        if i % 2 == 0:
+            go["probability"], stop["probability"] = 0.7, 0.3
+        nodes.append({"id": f"n{i}", "kind": "chance" if i % 2 == 0 else "decision",
+                      "branches": [go, stop]})
+        nodes.append({"id": f"e{i}", "kind": "end", "payoff": i * 0.1 if i % 2 == 0 else -i})
+    nodes.append({"id": f"n{levels}", "kind": "end", "payoff": 1000})
+    return {"kind": "tree", "root": "n0", "nodes": nodes}
+
+
+def test_a_deep_chain_gives_the_same_document_with_its_clairvoyant_value_on_lists():
+    doc = _chain(300)  # 601 nodes on 300 levels
+    assert small_tree.clairvoyant_on_lists(small_tree.as_lists(built(doc), None))
+    assert not small_tree.clairvoyant_on_lists(small_tree.as_lists(parse(alternating_tree(601)), None))
+    assert_same_document(doc, None)
+    assert_same_document(doc, 100.0)
+
+
 # -- each routine against its array twin ----------------------------------------------------
 
 

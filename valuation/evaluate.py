@@ -292,7 +292,7 @@ def _evaluate_tree(tree: FlatTree, r) -> dict:
     out["studies"] = []
     if tree.size <= INFORMATION_NODE_LIMIT:
         clairvoyant = (small_tree.clairvoyant_value(lists, r)
-                       if lists is not None and tree.size <= small_tree.LIST_CLAIRVOYANT_NODES
+                       if lists is not None and small_tree.clairvoyant_on_lists(lists)
                        else clairvoyant_value(tree, r))
         out["evpi"] = max(0.0, clairvoyant - float(rb.value[root]))
         out["information_values"] = _learning_values(tree, lists, rb, r, out["warnings"])

@@ -42,17 +42,19 @@ from valuation.tree_eval import profile_from_outcomes
 from valuation.utility import certainty_equivalent
 
 __all__ = ["LIST_PATH_NODES", "LIST_CLAIRVOYANT_NODES", "ListTree", "ListRollback", "as_lists",
-           "rollback", "clairvoyant_value", "learning_values", "risk_profile", "chance_nodes_by_depth"]
+           "rollback", "clairvoyant_on_lists", "clairvoyant_value", "learning_values", "risk_profile",
+           "chance_nodes_by_depth"]
 
 #: Trees of at most this many nodes are evaluated here. The lists pay most through the
 #: value of learning, which is only worked out up to INFORMATION_NODE_LIMIT nodes: the
 #: whole evaluation took 0.72-0.80 of the array time from 600 to 5,000 nodes, and 1.4
 #: times it beyond, where the value of learning is left out (alternating_tree, 2026-12).
 LIST_PATH_NODES = INFORMATION_NODE_LIMIT
-#: ... and their clairvoyant value up to this many nodes: its lists grow with the
-#: number of outcomes and the arrays catch up near 500 nodes (0.5 of their time at
-#: 300 nodes, 1.3 times it at 600).
+#: ... and their clairvoyant value up to this many nodes, or more when the tree is
+#: deep (see ``clairvoyant_on_lists``).
 LIST_CLAIRVOYANT_NODES = 400
+#: Nodes per level up to which the clairvoyant value is worked out on lists.
+LIST_CLAIRVOYANT_NODES_PER_LEVEL = 100
 #: Longest run numpy reduces strictly left to right (see the module docstring).
 MAX_LIST_WIDTH = 8
 #: Largest total of absolute amounts, and largest risk tolerance, evaluated here.
@@ -299,6 +301,19 @@ def risk_profile(lt: ListTree, rb: ListRollback) -> dict:
 
 
 # -- clairvoyant value (twin of tree_eval.clairvoyant_value) -----------------------------------
+
+
+def clairvoyant_on_lists(lt: ListTree) -> bool:
+    """Whether the lists work out the clairvoyant value faster than the arrays.
+
+    The arrays pay some forty numpy calls per level, the lists a few steps per outcome
+    of every node, and outcomes grow with the nodes of a level: measured (2026-12),
+    the lists took 0.5 of the array time on a 300-node alternating tree and 1.3 times
+    it at 600 nodes (6 levels); on generated trees 0.3-0.7 up to about 160 nodes a
+    level and 1.0-2.3 times beyond; on a 999-node chain of 499 levels 0.53.
+    """
+    return (lt.size <= LIST_CLAIRVOYANT_NODES
+            or lt.size <= LIST_CLAIRVOYANT_NODES_PER_LEVEL * len(lt.levels))
 
 
 def clairvoyant_value(lt: ListTree, risk_tolerance: float | None = None) -> float:

@@ -117,7 +117,7 @@ def build_tree(doc: dict, problems: Problems) -> FlatTree | None:
     and gives up at the first thing it does not like; ``_build_checked`` then reads
     the document again, collecting every problem with its location and message.
     Both end in ``_finish``, so a document accepted by either yields the same tree
-    (``tests/test_valuation_flattree.py`` checks this on generated trees).
+    (``tests/test_valuation_rollback.py`` checks this on generated trees).
     """
     tree = _build_fast(doc)
     if tree is not None:

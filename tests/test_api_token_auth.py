@@ -65,6 +65,9 @@ def test_user_is_the_one_the_orm_loads_field_for_field(people):
     assert _fields(user) == _fields(expected)
     assert user.is_active is True and user.date_joined.tzinfo is not None
     assert token.key == key and token.user is user and not token._state.adding
+    stored = Token.objects.get(key=key)
+    assert token.created == stored.created and token.created.tzinfo is not None
+    assert not hasattr(user, "token_created_for_auth")
 
 
 def test_one_query_per_authenticated_request(people):
@@ -73,7 +76,7 @@ def test_one_query_per_authenticated_request(people):
         TokenAuthentication().authenticate_credentials(key)
     assert len(queries) == 1
     # The join itself, not the ORM's select_related (whose select list names every column).
-    assert queries[0]["sql"].startswith("SELECT u.* FROM")
+    assert queries[0]["sql"].startswith("SELECT u.*, t.")
 
 
 def test_api_with_issued_token_unknown_token_and_inactive_user(people):

@@ -19,36 +19,53 @@ from django.contrib.auth import get_user_model
 from django.db import connections
 from django.utils.translation import gettext_lazy as _
 from rest_framework import authentication
-from rest_framework.authtoken.models import Token
 from rest_framework.exceptions import AuthenticationFailed
 
 __all__ = ["TokenAuthentication"]
 
+# The token's creation time rides along under a name no user model field has.
+_CREATED = "token_created_for_auth"
+
 
 @cache
-def _user_by_key_sql(vendor: str) -> str:
+def _user_by_key_sql(vendor: str, token_model) -> str:
     # Identifiers come from the models, never from the request; the key is a parameter.
     # ``vendor`` keys the cache: quoting differs between database engines.
     del vendor
     quote = connections["default"].ops.quote_name
     user_model = get_user_model()
-    token_user = Token._meta.get_field("user")
-    return (f"SELECT u.* FROM {quote(user_model._meta.db_table)} u "  # noqa: S608 - names from the models, quoted; the key is a parameter
-            f"JOIN {quote(Token._meta.db_table)} t "
-            f"ON t.{quote(token_user.column)} = u.{quote(user_model._meta.pk.column)} "
-            f"WHERE t.{quote(Token._meta.pk.column)} = %s")
+    meta = token_model._meta
+    return (f"SELECT u.*, t.{quote(meta.get_field('created').column)} AS {_CREATED} "  # noqa: S608 - names from the models, quoted; the key is a parameter
+            f"FROM {quote(user_model._meta.db_table)} u "
+            f"JOIN {quote(meta.db_table)} t "
+            f"ON t.{quote(meta.get_field('user').column)} = u.{quote(user_model._meta.pk.column)} "
+            f"WHERE t.{quote(meta.pk.column)} = %s")
+
+
+def _created(token_model, raw_value):
+    """The token's creation time as the ORM would give it (SQLite stores it as text)."""
+    field = token_model._meta.get_field("created")
+    connection = connections["default"]
+    column = field.get_col(token_model._meta.db_table)
+    value = raw_value
+    for convert in connection.ops.get_db_converters(column) + field.get_db_converters(connection):
+        value = convert(value, column, connection)
+    return value
 
 
 class TokenAuthentication(authentication.TokenAuthentication):
     """``Authorization: Token <key>``, checked as DRF checks it, in one raw query."""
 
     def authenticate_credentials(self, key):
-        sql = _user_by_key_sql(connections["default"].vendor)
+        model = self.get_model()
+        sql = _user_by_key_sql(connections["default"].vendor, model)
         user = next(iter(get_user_model().objects.raw(sql, [key])), None)
         if user is None:
             raise AuthenticationFailed(_("Invalid token."))
         if not user.is_active:
             raise AuthenticationFailed(_("User inactive or deleted."))
-        token = Token(key=key, user=user)
-        token._state.adding = False  # it is the stored row's key, not a new token
+        # The stored row, as DRF's lookup returns it: key, user and creation time.
+        created = _created(model, user.__dict__.pop(_CREATED))
+        token = model(key=key, user=user, created=created)
+        token._state.adding, token._state.db = False, user._state.db
         return user, token

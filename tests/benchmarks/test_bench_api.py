@@ -99,10 +99,14 @@ def _wrk(token: str, body: bytes, seconds: float, folder: Path) -> dict | None:
     url = f"http://{lt.HOST}:{lt.PORT}/api/evaluate/"
     run = subprocess.run(["wrk", "-t2", f"-c{CLIENTS}", f"-d{seconds:.0f}s", "--timeout", "30s",
                           "-s", str(script), url], capture_output=True, text=True, check=True)
-    fields = next(line for line in run.stdout.splitlines() if line.startswith("RESULT")).split()
+    lines = [line for line in run.stdout.splitlines() if line.startswith("RESULT")]
+    assert lines, f"wrk printed no RESULT line (a Lua error?): {run.stdout[-500:]} {run.stderr[-500:]}"
+    fields = lines[0].split()
     n, duration, connect, read, write, status, timeout, p50, p95, p99, top = map(int, fields[1:])
     return {"n": n, "rate": n / (duration / 1e6), "p50": p50 / 1000, "p95": p95 / 1000,
-            "p99": p99 / 1000, "max": top / 1000, "non_2xx": status,
+            # wrk counts answers of 400 and above as status errors (3xx would pass unseen;
+            # the endpoint answers 200 or 4xx, and one checked request precedes the run).
+            "p99": p99 / 1000, "max": top / 1000, "status_errors": status,
             "transport_errors": connect + read + write + timeout}
 
 
@@ -167,8 +171,8 @@ def _row(label: str, r: dict | None, answers: str, bold: bool = False) -> str:
 def _wrk_answers(r: dict | None) -> str:
     if r is None:
         return ""
-    return "all 200" if not r["non_2xx"] + r["transport_errors"] else (
-        f"{r['non_2xx']:,} not 2xx, {r['transport_errors']:,} transport errors")
+    return "no 4xx/5xx, no transport errors" if not r["status_errors"] + r["transport_errors"] \
+        else f"{r['status_errors']:,} 4xx/5xx, {r['transport_errors']:,} transport errors"
 
 
 def _report(body, one, cpu, floor_cpu, growth, by_wrk, floor_wrk, threads, threads_floor):
@@ -189,7 +193,7 @@ def _report(body, one, cpu, floor_cpu, growth, by_wrk, floor_wrk, threads, threa
         f"{one['p99']:.1f} ms | {one['max']:.1f} ms | {cpu:.1f} ms | 200 |",
         _row(f"{CLIENTS}, wrk", by_wrk, _wrk_answers(by_wrk), bold=True),
         _row(f"{CLIENTS}, wrk, floor (tiny refused document)", floor_wrk,
-             f"{floor_wrk['non_2xx']:,} not 2xx (400 expected), "
+             f"{floor_wrk['status_errors']:,} 4xx/5xx (400 expected), "
              f"{floor_wrk['transport_errors']} transport errors" if floor_wrk else ""),
         _row(f"{CLIENTS}, Python threads", t, str(dict(t_statuses))),
         _row(f"{CLIENTS}, Python threads, floor", tf, str(dict(tf_statuses))),
@@ -266,7 +270,7 @@ def test_evaluate_endpoint_p95_with_16_clients(tmp_path, monkeypatch):
     threads_floor = lt._percentiles(floor)
     threads_floor["rate"] = len(floor) / floor_elapsed
     main = by_wrk or threads
-    assert (by_wrk["non_2xx"] + by_wrk["transport_errors"] == 0 if by_wrk
+    assert (by_wrk["status_errors"] + by_wrk["transport_errors"] == 0 if by_wrk
             else statuses == Counter({200: len(latencies)})), (by_wrk, statuses)
     met = check_target(main["p95"] < 50, f"p95 {main['p95']:.0f} ms >= 50 ms")
     lines = _report(body, lt._percentiles(single), cpu, floor_cpu, growth, by_wrk, floor_wrk,

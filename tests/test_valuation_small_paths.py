@@ -409,3 +409,53 @@ def test_the_one_pass_reader_declines_on_small_trees_what_the_validating_reader_
         assert build_tree(changed, Problems()) is None, new_id
     assert _build_fast(doc) is not None
     assert _build_fast(json.loads(json.dumps(doc).replace('"n1"', json.dumps("y" * 200)))) is not None
+
+
+# -- the production thresholds, unpatched --------------------------------------------------
+
+
+def _complete_ternary_tree(n: int, seed: int) -> dict:
+    """Exactly ``n`` nodes: node i's children are 3i+1 .. 3i+3; decision and chance levels
+    alternate; leaves pay seeded amounts; chance branches share 1 equally."""
+    rnd = random.Random(seed)
+    nodes = []
+    for i in range(n):
+        children = [c for c in range(3 * i + 1, 3 * i + 4) if c < n]
+        level = _ternary_level(i)
+        if not children:
+            nodes.append({"id": f"n{i}", "kind": "end", "payoff": rnd.randint(-50, 150)})
+            continue
+        chance = level % 2 == 1
+        nodes.append({"id": f"n{i}", "kind": "chance" if chance else "decision", "branches": [
+            {"label": f"b{j}", "to": f"n{c}", "cash_flow": rnd.randint(-5, 5),
+             **({"probability": 1 / len(children)} if chance else {})}
+            for j, c in enumerate(children)]})
+    return {"kind": "tree", "title": "threshold tree (invented)", "root": "n0", "nodes": nodes}
+
+
+def _ternary_level(i: int) -> int:
+    level, first = 0, 0
+    while i > first + 3 ** level - 1:
+        first += 3 ** level
+        level += 1
+    return level
+
+
+@pytest.mark.parametrize("size", [
+    small_tree.LIST_CLAIRVOYANT_NODES - 1, small_tree.LIST_CLAIRVOYANT_NODES,
+    small_tree.LIST_CLAIRVOYANT_NODES + 1, small_tree.LIST_PATH_NODES,
+    small_tree.LIST_PATH_NODES + 1])
+def test_default_thresholds_give_the_array_document_on_either_side(size):
+    # The other tests patch the limits; here the shipped ones decide the path, and the
+    # document must still be the array path's on both sides of each limit.
+    doc = _complete_ternary_tree(size, seed=11)
+    tree = built(doc)
+    assert tree.size == size
+    lists = small_tree.as_lists(tree, None)
+    assert (lists is not None) == (size <= small_tree.LIST_PATH_NODES)
+    if size == small_tree.LIST_PATH_NODES:  # 9 levels: the clairvoyant value on the arrays
+        assert not small_tree.clairvoyant_on_lists(lists)
+    for r in (None, 1000.0):
+        default = as_text(valuation.evaluate(doc, risk_tolerance=r))
+        with arrays_only():
+            assert default == as_text(valuation.evaluate(doc, risk_tolerance=r))

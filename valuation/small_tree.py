@@ -150,6 +150,16 @@ def _reduceat_sum(x: list[float]) -> float:
     return x[0] + total
 
 
+def _weighted_run_sum(prob: list[float], f: int, bv: list[float]) -> float:
+    """``sum p * v`` over one chance node's branches (probabilities from ``prob[f]``) in
+    ``np.add.reduceat``'s order, as the batched array learning adds them: see
+    ``_reduceat_sum``."""
+    total = -0.0
+    for j in range(1, len(bv)):
+        total += prob[f + j] * bv[j]
+    return prob[f] * bv[0] + total
+
+
 def _max(x: list[float]) -> float:
     """``np.maximum`` folded left to right: of equal values the later one. Only 0.0 and
     -0.0 are equal without being the same bits, so Python's ``max`` (which keeps the
@@ -211,7 +221,7 @@ def rollback(lt: ListTree, risk_tolerance: float | None = None) -> ListRollback:
     """``flattree.rollback``: chance nodes add ``p * value`` left to right (or take the
     certainty equivalent), decision nodes take the first branch within the tie tolerance."""
     r = risk_tolerance
-    kind, child, prob, cash = lt.kind, lt.child, lt.prob, lt.cash
+    kind, child, cash = lt.kind, lt.child, lt.cash
     first, count = lt.first_branch, lt.branch_count
     value = [p if k == END else 0.0 for k, p in zip(kind, lt.payoff, strict=True)]
     expected = value.copy() if r else None
@@ -221,19 +231,7 @@ def rollback(lt: ListTree, risk_tolerance: float | None = None) -> ListRollback:
     for chance, decision in lt.levels:
         if r:
             _chance_ce_level(lt, chance, value, r)
-            for i in chance:
-                f = first[i]
-                total = prob[f] * (expected[child[f]] if skip else cash[f] + expected[child[f]])
-                for b in range(f + 1, f + count[i]):
-                    total += prob[b] * (expected[child[b]] if skip else cash[b] + expected[child[b]])
-                expected[i] = total
-        else:
-            for i in chance:
-                f = first[i]
-                total = prob[f] * (value[child[f]] if skip else cash[f] + value[child[f]])
-                for b in range(f + 1, f + count[i]):
-                    total += prob[b] * (value[child[b]] if skip else cash[b] + value[child[b]])
-                value[i] = total
+        _expect_level(lt, chance, expected if r else value)
         for i in decision:
             f = first[i]
             bv = [value[child[b]] if skip else cash[b] + value[child[b]] for b in range(f, f + count[i])]
@@ -248,6 +246,19 @@ def rollback(lt: ListTree, risk_tolerance: float | None = None) -> ListRollback:
                 b = f + near[0]
                 expected[i] = expected[child[b]] if skip else cash[b] + expected[child[b]]
     return ListRollback(value, best, tie, expected)
+
+
+def _expect_level(lt: ListTree, chance: list[int], values: list[float]) -> None:
+    """Expected values of one level's chance nodes into ``values``: ``p * (cash + value)``
+    added left to right from the first branch, as ``flattree.rollback`` adds them."""
+    first, count, prob, cash, child = lt.first_branch, lt.branch_count, lt.prob, lt.cash, lt.child
+    skip = lt.skip_cash
+    for i in chance:
+        f = first[i]
+        total = prob[f] * (values[child[f]] if skip else cash[f] + values[child[f]])
+        for b in range(f + 1, f + count[i]):
+            total += prob[b] * (values[child[b]] if skip else cash[b] + values[child[b]])
+        values[i] = total
 
 
 def _chance_ce_level(lt: ListTree, nodes: list[int], value: list[float], r: float) -> None:
@@ -522,12 +533,7 @@ def _root_values(lt: ListTree, r: float | None) -> tuple[list[float], list]:
                 value[i] = v
         else:
             for i in chance:
-                f = first[i]
-                bv = branch_values[i]
-                total = -0.0
-                for j in range(1, len(bv)):
-                    total += prob[f + j] * bv[j]
-                value[i] = prob[f] * bv[0] + total  # np.add.reduceat: see _reduceat_sum
+                value[i] = _weighted_run_sum(prob, first[i], branch_values[i])
         for i in decision:
             f = first[i]
             bv = [cash[b] + value[child[b]] for b in range(f, f + count[i])]
@@ -577,10 +583,7 @@ def _walk_up(lt: ListTree, base: list[float], branch_values: list, node: int, v:
         else:
             bv = branch_values[parent].copy()
             bv[b - f] = x
-            total = -0.0
-            for j in range(1, len(bv)):
-                total += prob[f + j] * bv[j]
-            v = prob[f] * bv[0] + total  # np.add.reduceat: see _reduceat_sum
+            v = _weighted_run_sum(prob, f, bv)
         node = parent
     return v
 

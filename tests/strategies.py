@@ -1,5 +1,7 @@
-"""Hypothesis strategies for model documents, shared by the property tests."""
+"""Hypothesis strategies for model documents, shared by the property tests, and a helper
+that changes one entry of a document."""
 
+import copy
 from fractions import Fraction
 
 from hypothesis import strategies as st
@@ -86,3 +88,13 @@ def _eighths(parts):
     raw = [p * 8 // total for p in parts]
     raw[0] += 8 - sum(raw)
     return [r / 8 for r in raw]
+
+
+def with_value_at(doc: dict, path, value) -> dict:
+    """A deep copy of ``doc`` with the entry at ``path`` (keys and indexes) set to ``value``."""
+    changed = copy.deepcopy(doc)
+    target = changed
+    for key in path[:-1]:
+        target = target[key]
+    target[path[-1]] = value
+    return changed

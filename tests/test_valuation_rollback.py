@@ -6,7 +6,6 @@ chance node's terms left to right, so even inexact floats agree bit for bit),
 and the one-pass tree reader against the validating reader (same arrays).
 """
 
-import copy
 import random
 
 import numpy as np
@@ -16,7 +15,7 @@ from hypothesis import strategies as st
 
 from tests.benchmarks.bench_inputs import alternating_tree
 from tests.reference_rollback import reference_rollback
-from tests.strategies import trees
+from tests.strategies import trees, with_value_at
 from valuation.checks import Problems
 from valuation.flattree import DECISION, _build_checked, _build_fast, build_tree, rollback
 
@@ -142,11 +141,7 @@ def test_the_one_pass_reader_declines_what_the_validating_reader_refuses():
         ("nodes", 0, "kind", "leaf"), ("nodes", 0, "branches", 0, "to", 3),
     ]
     for *path, value in bad:
-        changed = copy.deepcopy(doc)
-        target = changed
-        for key in path[:-1]:
-            target = target[key]
-        target[path[-1]] = value
+        changed = with_value_at(doc, path, value)
         assert _build_fast(changed) is None, path
         assert build_tree(changed, Problems()) is None, path
 

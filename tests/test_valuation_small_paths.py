@@ -14,7 +14,6 @@ as installed); a helper that summed left to right instead fails them (the inputs
 chosen so that the two orders differ, and the test says so).
 """
 
-import copy
 import json
 import random
 import struct
@@ -28,6 +27,7 @@ from hypothesis import strategies as st
 
 import valuation
 from tests.benchmarks.bench_inputs import alternating_tree
+from tests.strategies import with_value_at
 from valuation import small_tree
 from valuation.checks import Problems
 from valuation.evaluate import parse
@@ -396,11 +396,7 @@ def test_the_one_pass_reader_declines_on_small_trees_what_the_validating_reader_
     bad = [("nodes", 0, "branches", 1, "label", "b0"), ("nodes", 0, "branches", 0, "label", ""),
            ("nodes", 0, "branches", 0, "label", "x" * 201), ("nodes", 0, "branches", 2, "label", "\t")]
     for *path, value in bad:
-        changed = copy.deepcopy(doc)
-        target = changed
-        for key in path[:-1]:
-            target = target[key]
-        target[path[-1]] = value
+        changed = with_value_at(doc, path, value)
         assert _build_fast(changed) is None, path
         assert build_tree(changed, Problems()) is None, path
     for new_id in ("y" * 201, ""):  # node n1 renamed, and the branch to it too

@@ -64,6 +64,32 @@ def test_one_way_text_shows_points_plans_break_evens_and_the_caution(capsys):
     assert RESCALING_NOTE not in out  # a fee is not a probability
 
 
+def test_a_hand_over_by_the_tie_rule_is_explained_in_the_text(capsys, tmp_path):
+    # Invented check model: the later alternative is 2e-9 better in every state, which
+    # counts only once the best value falls under 2 (tie tolerance 1e-9 x the best value).
+    doc = {"kind": "payoff_table", "title": "tie check (invented)",
+           "states": [{"name": "s1", "probability": 0.5}, {"name": "s2", "probability": 0.5}],
+           "alternatives": [{"name": "First", "payoffs": {"s1": 0.0, "s2": 10.0}},
+                            {"name": "Later", "payoffs": {"s1": 2e-9, "s2": 10.0 + 2e-9}}],
+           "studies": []}
+    path = tmp_path / "tie.json"
+    path.write_text(json.dumps(doc))
+    code, out, _ = cli(capsys, str(path), "--parameter", "states[0].probability", "--points", "5")
+    assert code == 0
+    line = next(x for x in out.splitlines() if x.startswith("  at "))
+    assert line.startswith("  at 0.8: 'First' -> 'Later' (both worth 2.00 to within the tie tolerance")
+    assert "the tie rule prefers the first in document order" in line
+
+
+def test_an_exact_break_even_says_both_plans_are_worth_the_same(capsys):
+    code, out, _ = cli(capsys, TABLE, "--parameter", "studies[0].cost", "--low", "0", "--high",
+                       "600000", "--points", "7")
+    assert code == 0
+    lines = [x for x in out.splitlines() if x.startswith("  at ")]
+    assert lines and all(x.endswith(")") and "(both worth " in x for x in lines)
+    assert not any("tie" in x for x in lines)
+
+
 def test_one_way_with_explicit_values_and_a_risk_tolerance(capsys):
     code, out, _ = cli(capsys, TREE, "--parameter", "nodes[1].branches[0].probability",
                        "--values", "0.2,0.6", "--risk-tolerance", "3000000", "--json")

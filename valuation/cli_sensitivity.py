@@ -183,6 +183,14 @@ def _criterion(result: dict, currency: str) -> str:
     return f"{what}{f' ({currency})' if currency else ''}"
 
 
+def _worth(be: dict) -> str:
+    """Why the plan changes: an exact crossing, or a tie rule hand-over with no crossing."""
+    if be.get("tie_rule"):
+        return (f"both worth {_num(be['value_from'], 'money')} to within the tie tolerance, "
+                "never exactly the same; the tie rule prefers the first in document order")
+    return f"both worth {_num(be['value_from'], 'money')}"
+
+
 def _render_one_way(res: dict, currency: str) -> str:
     base = _num(res["base"], res["kind"])
     lines = [f"One-way sensitivity to {res['label']} ({res['parameter']}), base {base}", ""]
@@ -195,7 +203,7 @@ def _render_one_way(res: dict, currency: str) -> str:
         lines.append("Break-even values (the best plan changes):")
         for be in res["break_even"]:
             lines.append(f"  at {_num(be['value'], res['kind'])}: '{be['from']}' -> '{be['to']}' "
-                         f"(both worth {_num(be['value_from'], 'money')})")
+                         f"({_worth(be)})")
     else:
         lines.append("No break-even value in this range: the best plan is the same throughout.")
     return "\n".join(lines + _footer(res["note"])) + "\n"

@@ -166,8 +166,9 @@ def _break_evens(model, spec: Parameter, xs: np.ndarray, plans: np.ndarray, r) -
     found.sort(key=lambda item: item[0])
     out = []
     for x_switch, left_end, right_end, a, b in found:
-        x, va, vb = _refine(model, spec, x_switch, left_end, right_end, a, b, r, floor)
+        x, va, vb, crossed = _refine(model, spec, x_switch, left_end, right_end, a, b, r, floor)
         out.append({"value": x, "from": plan_label(model, a), "to": plan_label(model, b),
+                    "tie_rule": not crossed,
                     "first_choice_from": first_choice_label(model, _first_of(model, a)),
                     "first_choice_to": first_choice_label(model, _first_of(model, b)),
                     "value_from": va, "value_to": vb,
@@ -176,7 +177,7 @@ def _break_evens(model, spec: Parameter, xs: np.ndarray, plans: np.ndarray, r) -
 
 
 def _refine(model, spec: Parameter, x_switch: float, left: float, right: float, a, b, r,
-            floor: float) -> tuple[float, float, float]:
+            floor: float) -> tuple[float, float, float, bool]:
     """Where plans ``a`` and ``b`` are worth exactly the same, near the switch point.
 
     Bisection on the best plan stops where the tie rule (the first plan in document
@@ -186,6 +187,12 @@ def _refine(model, spec: Parameter, x_switch: float, left: float, right: float, 
     bracket grown around the switch point, gives the break-even to machine precision
     (Brent, R. P., *Algorithms for Minimization without Derivatives*, 1973, ch. 4, as
     implemented by ``scipy.optimize.brentq``).
+
+    Two plans can also hand over without ever crossing: when they differ by less than
+    the tie tolerance, which is relative to the best value, the tie rule prefers the
+    first in document order until the values grow small enough for the gap to count.
+    Then the switch point is kept, the two values differ by the tie tolerance there,
+    and the last item returned (whether they cross) is False.
     """
 
     def values(x: float) -> tuple[float, float]:
@@ -204,6 +211,7 @@ def _refine(model, spec: Parameter, x_switch: float, left: float, right: float, 
         step *= 16.0
         lo, hi = max(left, x_switch - step), min(right, x_switch + step)
         g_lo, g_hi = gap(lo), gap(hi)
+    crossed = True
     if g_lo == 0.0:
         x = lo
     elif g_hi == 0.0:
@@ -213,9 +221,9 @@ def _refine(model, spec: Parameter, x_switch: float, left: float, right: float, 
 
         x = float(brentq(gap, lo, hi, xtol=max(floor, 1e-300), rtol=4 * np.finfo(float).eps))
     else:  # no sign change (the two plans never cross exactly): keep the switch point
-        x = float(x_switch)
+        x, crossed = float(x_switch), False
     va, vb = values(x)
-    return x, va, vb
+    return x, va, vb, crossed
 
 
 def _first_of(model, key) -> int:
@@ -272,7 +280,10 @@ def one_way(doc: Any, parameter: str, values=None, *, points: int = 41, low: flo
         study option, tables only), ``break_even`` and ``note``. Each break-even holds
         ``value`` (the parameter value where plan ``from`` hands over to plan ``to``),
         ``first_choice_from`` / ``first_choice_to``, ``value_from`` / ``value_to`` (both
-        plans' values there, equal up to rounding) and ``problem_value``. Amounts in the
+        plans' values there, equal up to rounding), ``tie_rule`` (True when the two never
+        cross: they stay within the tie tolerance of each other, and the hand-over comes
+        from the tie rule, so ``value_from`` and ``value_to`` differ by that tolerance)
+        and ``problem_value``. Amounts in the
         objective's units (expected costs for "min").
 
     Raises

@@ -113,6 +113,23 @@ def test_malformed_header_is_refused_before_any_lookup(people):
         assert r.json()["code"] == "authentication_failed"
 
 
+def test_unreadable_and_nul_keys_are_refused_not_a_server_error(people):
+    # DRF's own class answers both with a 500: the header cannot be encoded as
+    # ISO-8859-1 (HTTP's header encoding), and PostgreSQL refuses U+0000 in a query.
+    cases = {"Token \ud800" + "a" * 39: "Invalid token header. Token string should not "
+                                           "contain invalid characters.",
+             "Token \u20ac" + "a" * 39: "Invalid token header. Token string should not "
+                                         "contain invalid characters.",
+             "Token " + "a" * 20 + "\x00" + "a" * 19: "Invalid token."}
+    for header, message in cases.items():
+        client = APIClient()
+        client.credentials(HTTP_AUTHORIZATION=header)
+        r = client.get("/api/decisions/")
+        assert r.status_code == 403, (header, r.status_code)
+        assert r.json() == {"errors": [{"location": "", "message": message}],
+                            "code": "authentication_failed"}, header
+
+
 def test_revoked_token_no_longer_works_on_the_next_request(people):
     # Nothing is cached between requests: removing the row revokes the key at once.
     key = Token.objects.create(user=people.bea).key

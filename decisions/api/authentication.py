@@ -54,9 +54,24 @@ def _created(token_model, raw_value):
 
 
 class TokenAuthentication(authentication.TokenAuthentication):
-    """``Authorization: Token <key>``, checked as DRF checks it, in one raw query."""
+    """``Authorization: Token <key>``, checked as DRF checks it, in one raw query.
+
+    Two keys DRF answers with a server error are refused as invalid instead: a
+    header that cannot be read as ISO-8859-1 text (a test client or proxy can hand
+    over any string), and a key holding the character U+0000, which PostgreSQL
+    refuses to compare. No stored key can match either.
+    """
+
+    def authenticate(self, request):
+        try:
+            return super().authenticate(request)
+        except UnicodeEncodeError:
+            raise AuthenticationFailed(_("Invalid token header. Token string should not "
+                                         "contain invalid characters.")) from None
 
     def authenticate_credentials(self, key):
+        if "\x00" in key:
+            raise AuthenticationFailed(_("Invalid token."))
         model = self.get_model()
         sql = _user_by_key_sql(connections["default"].vendor, model)
         user = next(iter(get_user_model().objects.raw(sql, [key])), None)

@@ -56,19 +56,26 @@ def _no_duplicates(pairs):
     return out
 
 
-def _check_depth(data) -> None:
-    # After parsing, level by level over containers: a scan of the raw text had to
-    # skip every string first and cost more than the parse itself. The parser's own
-    # recursion guard (RecursionError) stops pathological nesting before this runs.
+def _objects(data) -> list[dict]:
+    """Every object in ``data``, level by level, depth-checked.
+
+    One walk over the containers, which the parser's fast path needs anyway: the
+    parser's own recursion guard (RecursionError) has already stopped pathological
+    nesting, and an earlier scan of the raw text had to skip every string and cost
+    more than the parse itself.
+    """
+    objects: list[dict] = []
     level, depth = [data], 1
     while level:
         if depth > MAX_DEPTH:
             raise BodyProblem(f"must not nest deeper than {MAX_DEPTH} levels")
-        level = ([v for item in level if type(item) is dict for v in item.values()
-                  if type(v) is dict or type(v) is list]
-                 + [v for item in level if type(item) is list for v in item
-                    if type(v) is dict or type(v) is list])
+        found = [item for item in level if type(item) is dict]
+        objects += found
+        values = [v for item in found for v in item.values()]
+        values += [v for item in level if type(item) is list for v in item]
+        level = [v for v in values if type(v) is dict or type(v) is list]
         depth += 1
+    return objects
 
 
 def _check_nul(value, path: str = "body") -> None:
@@ -88,6 +95,34 @@ def _check_nul(value, path: str = "body") -> None:
             stack.extend((sub, f"{where}[{i}]") for i, sub in enumerate(item))
 
 
+def _loads(text: str, *, checked: bool):
+    hooks = {"object_pairs_hook": _no_duplicates} if checked else {}
+    try:
+        return json.loads(text, parse_constant=_reject_constant, parse_float=_finite_float,
+                          **hooks)
+    except BodyProblem:
+        raise
+    except RecursionError:
+        raise BodyProblem(f"must not nest deeper than {MAX_DEPTH} levels") from None
+    except ValueError as exc:
+        raise BodyProblem(f"is not valid JSON: {exc}") from None
+
+
+def _may_hide_a_duplicate(text: str, data) -> bool:
+    """Whether the fast parse, which keeps the last of duplicate keys, may have hidden one.
+
+    Outside strings, a colon separates a key from its value, so the body's colons
+    number its members plus any colons inside strings (an escaped colon is not one);
+    the parsed objects hold one entry per member less one per duplicate. The two
+    counts agree only when there is neither: then nothing was hidden. Otherwise (a
+    colon in some text is enough) the checked parse, with a hook per object, decides
+    and names the key. Counting and walking cost less than that hook on every body.
+    """
+    if type(data) is not dict and type(data) is not list:
+        return False
+    return sum(map(len, _objects(data))) != text.count(":")
+
+
 def parse_strict_json(raw: bytes):
     """Decode and parse a body under the rules above; raise :class:`BodyProblem`."""
     try:
@@ -95,16 +130,13 @@ def parse_strict_json(raw: bytes):
     except UnicodeDecodeError as exc:
         raise BodyProblem(f"must be UTF-8 text (byte {exc.start} is not)") from None
     try:
-        data = json.loads(text, object_pairs_hook=_no_duplicates, parse_constant=_reject_constant,
-                          parse_float=_finite_float)
+        data = _loads(text, checked=False)
+        settled = not _may_hide_a_duplicate(text, data)
     except BodyProblem:
-        raise
-    except RecursionError:
-        raise BodyProblem(f"must not nest deeper than {MAX_DEPTH} levels") from None
-    except ValueError as exc:
-        raise BodyProblem(f"is not valid JSON: {exc}") from None
-    if isinstance(data, dict | list) and text.count("[") + text.count("{") > MAX_DEPTH:
-        _check_depth(data)
+        settled = False  # the checked parse names the first problem in reading order
+    if not settled:
+        data = _loads(text, checked=True)
+        _objects(data)  # the depth rule, after the rules the parse itself applies
     # JSON can carry U+0000 only as the escape \u0000 (a raw control character is
     # refused by the parser), so a body without that text needs no walk.
     if _NUL_ESCAPE in text:

@@ -265,13 +265,58 @@ def _table_nodes(t: PayoffTable, r, warnings: list[str]) -> dict:
 # -- general trees -------------------------------------------------------------------
 
 
+class _TreeForm:
+    """A tree as numpy arrays or, when small, as lists, with each evaluation step for that form.
+
+    valuation.small_tree gives the same figures to the last bit on Python lists, which
+    a tree of a few hundred nodes reads faster than arrays; ``as_lists`` decides which
+    trees it takes. The choice is made here once, so the evaluation reads the same
+    either way; ``view`` is the form the element-by-element steps read.
+    """
+
+    def __init__(self, tree: FlatTree, r):
+        self.tree, self.r = tree, r
+        self.lists = small_tree.as_lists(tree, r)
+        self.view = tree if self.lists is None else self.lists
+
+    def rollback(self):
+        if self.lists is None:
+            return rollback(self.tree, risk_tolerance=self.r)
+        return small_tree.rollback(self.lists, self.r)
+
+    def clairvoyant_value(self) -> float:
+        if self.lists is not None and small_tree.clairvoyant_on_lists(self.lists):
+            return small_tree.clairvoyant_value(self.lists, self.r)
+        return clairvoyant_value(self.tree, self.r)
+
+    def chance_nodes_by_depth(self) -> list[int]:
+        if self.lists is not None:
+            return small_tree.chance_nodes_by_depth(self.lists)
+        tree = self.tree
+        chance = np.flatnonzero(tree.kind == CHANCE)
+        return chance[np.argsort(tree.depth[chance], kind="stable")].tolist()
+
+    def learning_values(self, chance: list[int], rb) -> list[float]:
+        if self.lists is None:
+            return learning_values(self.tree, chance, rb, self.r)
+        return small_tree.learning_values(self.lists, chance, float(rb.value[self.tree.root]),
+                                          self.r)
+
+    def risk_profile(self, rb) -> dict:
+        if self.lists is None:
+            return risk_profile(self.tree, rb)
+        return small_tree.risk_profile(self.lists, rb)
+
+    def tied_nodes(self, rb, limit: int) -> list[int]:
+        if self.lists is None:
+            return np.flatnonzero(rb.tie)[:limit].tolist()
+        return [i for i, t in enumerate(rb.tie) if t][:limit]
+
+
 def _evaluate_tree(tree: FlatTree, r) -> dict:
-    # A small tree is evaluated on Python lists (valuation.small_tree, the same figures to
-    # the last bit); ``view`` is then the tree as lists, which the element-by-element
-    # steps below read faster than arrays.
-    lists = small_tree.as_lists(tree, r)
-    view = tree if lists is None else lists
-    rb = rollback(tree, risk_tolerance=r) if lists is None else small_tree.rollback(lists, r)
+    form = _TreeForm(tree, r)
+    view = form.view
+    rb = form.rollback()
     s = tree.sign
     out = _header(tree, r)
     root = tree.root
@@ -291,21 +336,16 @@ def _evaluate_tree(tree: FlatTree, r) -> dict:
     out["without_information"] = without
     out["studies"] = []
     if tree.size <= INFORMATION_NODE_LIMIT:
-        clairvoyant = (small_tree.clairvoyant_value(lists, r)
-                       if lists is not None and small_tree.clairvoyant_on_lists(lists)
-                       else clairvoyant_value(tree, r))
-        out["evpi"] = max(0.0, clairvoyant - float(rb.value[root]))
-        out["information_values"] = _learning_values(tree, lists, rb, r, out["warnings"])
+        out["evpi"] = max(0.0, form.clairvoyant_value() - float(rb.value[root]))
+        out["information_values"] = _learning_values(form, rb, out["warnings"])
     else:
         out["evpi"] = None
         out["information_values"] = []
         out["warnings"].append(f"EVPI and the value of learning each chance node are computed "
                                f"for trees of up to {INFORMATION_NODE_LIMIT:,} nodes")
-    out["risk_profile"] = risk_profile(tree, rb) if lists is None else small_tree.risk_profile(lists, rb)
-    tied = (np.flatnonzero(rb.tie)[:100].tolist() if lists is None
-            else [i for i, t in enumerate(rb.tie) if t][:100])
+    out["risk_profile"] = form.risk_profile(rb)
     out["ties"] = [{"node": tree.ids[i], "chosen": tree.labels[int(rb.best[i])],
-                    "branches": _tied_labels(view, rb, i)} for i in tied]
+                    "branches": _tied_labels(view, rb, i)} for i in form.tied_nodes(rb, 100)]
     if tree.size <= DETAIL_NODE_LIMIT:
         out["nodes"] = node_details(view, rb, r)
     else:
@@ -338,20 +378,14 @@ def _tied_labels(tree: FlatTree, rb, node: int) -> list[str]:
     return [tree.labels[f + j] for j in np.flatnonzero(vals >= top - 1e-9 * max(1.0, abs(top)))]
 
 
-def _learning_values(tree: FlatTree, lists, rb, r, warnings: list[str]) -> list[dict]:
-    if lists is None:
-        chance = np.flatnonzero(tree.kind == CHANCE)
-        chance = chance[np.argsort(tree.depth[chance], kind="stable")].tolist()
-    else:
-        chance = small_tree.chance_nodes_by_depth(lists)
+def _learning_values(form: _TreeForm, rb, warnings: list[str]) -> list[dict]:
+    chance = form.chance_nodes_by_depth()
     if len(chance) > MAX_LEARNING_NODES:
         warnings.append(f"value of learning reported for the {MAX_LEARNING_NODES} chance nodes "
                         "nearest the root only")
         chance = chance[:MAX_LEARNING_NODES]
-    if lists is None:
-        values = learning_values(tree, chance, rb, r)
-    else:
-        values = small_tree.learning_values(lists, chance, float(rb.value[tree.root]), r)
+    values = form.learning_values(chance, rb)
+    tree = form.tree
     return [{"node": tree.ids[i], "name": tree.names[i], "value": v}
             for i, v in zip(chance, values, strict=True)]
 

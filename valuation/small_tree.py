@@ -14,10 +14,14 @@ order of operations decides a result, it is restated here:
   it starts from -0.0 (``_reduceat_sum``); ``np.sum`` of a few terms starts from 0.0
   (``_sum_of_at_most_8``); ``np.bincount`` with weights adds left to right from 0.0,
   ``np.cumsum`` from its first term.
-- ``np.maximum`` and ``np.minimum`` return their second argument when both compare
-  equal (0.0 and -0.0), and so do their reductions over runs of at most 8 elements;
-  over longer runs numpy regroups them. A tree with a node of more than
-  ``MAX_LIST_WIDTH`` branches is therefore left to the array code.
+- ``np.maximum`` returns its second argument when both compare equal (0.0 and -0.0),
+  so the rollback's column-by-column maximum keeps the later zero (``_max``). numpy's
+  reductions (``.max()``, ``.min()``, ``reduceat``) pick the sign of a zero by the order
+  of their vector loops, which depends on the processor: with AVX-512 they matched a
+  left-to-right fold on runs of up to 8, with AVX2 runs of 5 to 8 differ. So a maximum
+  or minimum of zero taken where the array code reduces is asked of numpy itself
+  (``_max_reduced``, ``_min``). A tree with a node of more than ``MAX_LIST_WIDTH``
+  branches is left to the array code.
 - ``np.exp`` and ``np.log`` are not the C library's (they differ in the last bit now
   and then), so they are still called, on a whole level at a time.
 - Amounts are bounded (``_AMOUNT_BOUND``) so that no value overflows: infinities and
@@ -172,13 +176,19 @@ def _max(x: list[float]) -> float:
     return top
 
 
+def _max_reduced(x: list[float]) -> float:
+    """``np.max`` of ``x``: Python's ``max``, but a zero's sign from numpy (see above)."""
+    top = max(x)
+    if top == 0:
+        return float(np.array(x).max())
+    return top
+
+
 def _min(x: list[float]) -> float:
-    """``np.minimum`` folded left to right, as ``_max``."""
+    """``np.min`` of ``x``: Python's ``min``, but a zero's sign from numpy (see above)."""
     low = min(x)
     if low == 0:
-        for v in x:
-            if not low < v:
-                low = v
+        return float(np.array(x).min())
     return low
 
 
@@ -539,7 +549,7 @@ def _root_values(lt: ListTree, r: float | None) -> tuple[list[float], list]:
             bv = [cash[b] + value[child[b]] for b in range(f, f + count[i])]
             branch_values[i] = bv
             top = max(bv)
-            value[i] = top if top != 0 else _max(bv)
+            value[i] = top if top != 0 else _max_reduced(bv)
     return value, branch_values
 
 
@@ -579,7 +589,7 @@ def _walk_up(lt: ListTree, base: list[float], branch_values: list, node: int, v:
             if v == 0:
                 bv = branch_values[parent].copy()
                 bv[b - f] = x
-                v = _max(bv)
+                v = _max_reduced(bv)
         else:
             bv = branch_values[parent].copy()
             bv[b - f] = x
@@ -628,7 +638,7 @@ def _walk_up_together(lt: ListTree, base: list[float], branch_values: list, rows
             parent, bv = _new_value(lt, branch_values, row[2], row[3])
             row[2] = parent
             if kind[parent] == DECISION:
-                row[3] = _max(bv)
+                row[3] = _max_reduced(bv)
             else:
                 chance_rows.append(row)
                 chance_bvs.append(bv)

@@ -10,6 +10,7 @@ default a miss is printed and recorded, because the shared machine is noisy).
 from __future__ import annotations
 
 import datetime as dt
+import math
 import os
 import platform
 import re
@@ -83,13 +84,30 @@ def check_target(ok: bool, text: str) -> str:
     return "met" if ok else "NOT MET"
 
 
+def machine_pace_ms() -> float:
+    """Best of 5 of a fixed pure-Python loop (``sum(range(10**6))``), in ms.
+
+    The machine is a shared virtual one whose speed drifts: the same loop has taken
+    from 19 to 30 ms within one hour here. Printed beside each section's figures, it
+    says how fast the machine was when they were taken, so runs can be compared.
+    """
+    best = math.inf
+    for _ in range(5):
+        t0 = time.perf_counter()
+        sum(range(10**6))
+        best = min(best, time.perf_counter() - t0)
+    return best * 1000
+
+
 def write_section(name: str, command: str, body: str) -> None:
     """Replace (or append) the section ``name`` of RESULTS.md."""
     load = os.getloadavg()[0]
     header = (f"<!-- section: {name} -->\n## {name}\n\n"
               f"Measured {dt.datetime.now(dt.UTC):%Y-%m-%d %H:%M} UTC on {os.cpu_count()} cores, "
               f"Python {platform.python_version()}, numpy {np.__version__}, load average "
-              f"{load:.1f} at the end of the run.\n\nCommand: `{command}`\n\n")
+              f"{load:.1f} at the end of the run; machine pace (`sum(range(10**6))`, best of "
+              f"5) {machine_pace_ms():.1f} ms at the end of the run.\n\n"
+              f"Command: `{command}`\n\n")
     section = header + body.rstrip() + f"\n<!-- end: {name} -->\n"
     text = RESULTS.read_text() if RESULTS.exists() else _PREAMBLE
     pattern = re.compile(rf"<!-- section: {re.escape(name)} -->.*?<!-- end: {re.escape(name)} -->\n",

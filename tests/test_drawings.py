@@ -9,7 +9,8 @@ import xml.etree.ElementTree as ET
 from pathlib import Path
 
 import pytest
-from reportlab.graphics.shapes import Drawing, String
+from reportlab.graphics.shapes import Drawing, Line, String
+from reportlab.lib.attrmap import DerivedValue
 
 import valuation
 from decisions.drawings import charts
@@ -227,9 +228,9 @@ def test_svg_refuses_a_bad_id_prefix():
 
 # ---- charts -------------------------------------------------------------------------------------
 
-def test_every_chart_is_a_drawing_that_renders_to_svg():
+def all_charts() -> list[Drawing]:
     r = valuation.evaluate(load("heating_payoff_table.json"))
-    made = [
+    return [
         charts.risk_profile_chart(r["risk_profile"], currency="EUR"),
         charts.tornado_chart([{"name": "states[0].probability", "label": "P(hot reservoir)",
                                "low": 0.3, "high": 0.5, "value_low": 800000.0,
@@ -247,12 +248,61 @@ def test_every_chart_is_a_drawing_that_renders_to_svg():
                                    "count": 0, "mean_forecast": None,
                                    "observed_frequency": None}]),
     ]
-    for drawing in made:
+
+
+def test_every_chart_is_a_drawing_that_renders_to_svg():
+    for drawing in all_charts():
         assert isinstance(drawing, Drawing)
         ET.fromstring(to_svg(drawing))  # noqa: S314 (our own renderer's output)
         flowable = to_pdf_flowable(drawing)
         w, h = flowable.wrap(200, 1000)
         assert w <= 200 and h > 0
+
+
+def _shapes(group):
+    for shape in group.contents:
+        yield shape
+        if hasattr(shape, "contents"):
+            yield from _shapes(shape)
+
+
+def _attribute_problems(shape) -> list[str]:
+    """What reportlab's check on assignment (reportlab.lib.attrmap.validateSetattr)
+    would refuse among the attributes the shape holds: an unknown name or a bad value."""
+    attr_map = shape._attrMap
+    if not attr_map:
+        return []
+    problems = []
+    for name, value in vars(shape).items():
+        if name.startswith("_") or isinstance(value, DerivedValue):
+            continue
+        if name not in attr_map:
+            problems.append(f"{type(shape).__name__}.{name}: not an attribute")
+        elif not attr_map[name].validate(value):
+            problems.append(f"{type(shape).__name__}.{name}: bad value {value!r}")
+    return problems
+
+
+def test_every_shape_passes_reportlabs_own_attribute_checks():
+    # The package turns reportlab's check on every attribute assignment off for speed
+    # (decisions/drawings/__init__.py); the same check is made here, after the fact.
+    from reportlab import rl_config
+
+    assert rl_config.shapeChecking == 0
+    drawings = [*all_charts(), *tree_drawings(big_tree(500), valuation.evaluate(big_tree(500)))]
+    tree = load("heating_tree.json")
+    drawings += tree_drawings(tree, valuation.evaluate(tree))
+    shapes = [shape for drawing in drawings for shape in _shapes(drawing)]
+    assert len(shapes) > 1000
+    assert [p for shape in shapes for p in _attribute_problems(shape)] == []
+
+
+def test_the_attribute_check_finds_a_bad_value_and_an_unknown_name():
+    line = Line(0, 0, 10, 10)
+    line.strokeWidth = "thick"  # accepted now that assignment is not checked
+    line.colour = "red"
+    assert _attribute_problems(line) == ["Line.strokeWidth: bad value 'thick'",
+                                         "Line.colour: not an attribute"]
 
 
 def test_risk_profile_marks_the_expected_value():

@@ -15,8 +15,9 @@ first changes (bisection with more than one point per round), down to a relative
 width of ``BREAK_EVEN_RTOL``; the exact crossing is then found by Brent's method
 (``_refine``). Bracketing needs no smoothness: the value of the problem is
 piecewise linear in a payoff or cost and piecewise rational in a probability, and
-the plan is a step function of the parameter (common practice; the "sensitivity to probabilities" graphs of
-Raiffa, H., *Decision Analysis*, Addison-Wesley 1968, ch. 3).
+the plan is a step function of the parameter (common practice; the "sensitivity
+to probabilities" graphs of Raiffa, H., *Decision Analysis*, Addison-Wesley 1968,
+ch. 3).
 """
 
 from __future__ import annotations
@@ -206,7 +207,7 @@ def _refine(model, spec: Parameter, x_switch: float, left: float, right: float, 
             floor: float) -> tuple[float, float, float, bool]:
     """Where plans ``a`` and ``b`` are worth exactly the same, near the switch point.
 
-    Bisection on the best plan stops where the tie rule (the first plan in document
+    Bracketing on the best plan stops where the tie rule (the first plan in document
     order wins within ``TIE_TOLERANCE``) hands over, a hair from the true break-even.
     Each fixed plan's value is continuous in the parameter (linear in an amount, and in
     a probability under expected value), so Brent's method on their difference, in a

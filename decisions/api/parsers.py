@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import json
 import math
+from itertools import chain
 
 from django.conf import settings
 from rest_framework.exceptions import ParseError
@@ -112,15 +113,37 @@ def _may_hide_a_duplicate(text: str, data) -> bool:
     """Whether the fast parse, which keeps the last of duplicate keys, may have hidden one.
 
     Outside strings, a colon separates a key from its value, so the body's colons
-    number its members plus any colons inside strings (an escaped colon is not one);
-    the parsed objects hold one entry per member less one per duplicate. The two
-    counts agree only when there is neither: then nothing was hidden. Otherwise (a
-    colon in some text is enough) the checked parse, with a hook per object, decides
-    and names the key. Counting and walking cost less than that hook on every body.
+    number its members plus the colons written inside strings; the parsed objects
+    hold one entry per member less one per duplicate. The two counts agree only when
+    there is neither: then nothing was hidden. When they do not, the colons found in
+    the parsed strings are taken off, unless the body may escape a colon (``\\u003a``
+    is a colon in the parsed text but not in the body). Any doubt left goes to the
+    checked parse, with a hook per object, which decides and names the key. Counting
+    and walking cost less than that hook on every body.
     """
     if type(data) is not dict and type(data) is not list:
         return False
-    return sum(map(len, _objects(data))) != text.count(":")
+    entries, colons = sum(map(len, _objects(data))), text.count(":")
+    if colons == entries:
+        return False
+    if "\\u003" in text:  # perhaps an escaped colon, which the count below would miss
+        return True
+    return colons - _colons_in_strings(data) != entries
+
+
+def _colons_in_strings(data) -> int:
+    """Colons inside the keys and string values of ``data``: with no escaped colon in
+    the body, the body's colons less these are its members. Level by level, each
+    level's strings joined and counted at once."""
+    total, level = 0, [data]
+    while level:
+        found = [item for item in level if type(item) is dict]
+        values = [v for item in found for v in item.values()]
+        values += [v for item in level if type(item) is list for v in item]
+        total += "".join(chain.from_iterable(found)).count(":")
+        total += "".join([v for v in values if type(v) is str]).count(":")
+        level = [v for v in values if type(v) is dict or type(v) is list]
+    return total
 
 
 def parse_strict_json(raw: bytes):

@@ -77,8 +77,9 @@ def test_a_hand_over_by_the_tie_rule_is_explained_in_the_text(capsys, tmp_path):
     code, out, _ = cli(capsys, str(path), "--parameter", "states[0].probability", "--points", "5")
     assert code == 0
     line = next(x for x in out.splitlines() if x.startswith("  at "))
-    assert line.startswith("  at 0.8: 'First' -> 'Later' (both worth 2.00 to within the tie tolerance")
-    assert "the tie rule prefers the first in document order" in line
+    assert line == ("  at 0.8: 'First' -> 'Later' (they do not cross here: both worth 2.00 to "
+                    "within the tie tolerance, and the tie rule prefers the first in document "
+                    "order)")
 
 
 def test_an_exact_break_even_says_both_plans_are_worth_the_same(capsys):

@@ -239,6 +239,38 @@ def test_a_hand_over_by_the_tie_rule_is_reported_as_such():
     assert_worth_the_same(be)
 
 
+def test_a_distant_crossing_does_not_move_a_tie_rule_hand_over():
+    # Invented: the later alternative is exactly equal at P(s1) = 0.25 and better by less
+    # than the tie tolerance up to P(s1) = 11/14 (its gap 4e-9 p - 1e-9 reaches 1e-9 x
+    # the best value 10 (1 - p) there), so the best plan changes at 11/14 whatever the
+    # grid; the crossing at 0.25 is not where it changes. Worked by hand from the tie
+    # rule (common practice: a relative tolerance).
+    doc = table([("s1", 0.5), ("s2", 0.5)],
+                [("First", {"s1": 0.0, "s2": 10.0}), ("Later", {"s1": 3e-9, "s2": 10.0 - 1e-9})])
+    for points in (2, 3, 11):
+        [be] = one_way(doc, "states[0].probability", points=points)["break_even"]
+        assert be["tie_rule"] is True, points
+        assert be["value"] == pytest.approx(11 / 14, abs=1e-6), points
+
+
+def test_a_sweep_across_nearly_the_whole_range_of_a_double_finds_its_break_even():
+    # B is worth (x - 1e306) / 2 against A's 0: they cross at x = 1e306 exactly, inside a
+    # sweep whose width (2.5e308) a double cannot hold. Worked by hand.
+    doc = table([("s1", 0.5), ("s2", 0.5)],
+                [("A", {"s1": 0.0, "s2": 0.0}), ("B", {"s1": 1e306, "s2": -1e306})])
+    [be] = one_way(doc, "alternatives[1].payoffs.s1", [-1e308, 1.5e308])["break_even"]
+    assert be["tie_rule"] is False
+    assert be["value"] == pytest.approx(1e306, rel=1e-12)
+
+
+def test_a_default_range_wider_than_a_double_is_refused_by_name():
+    doc = table([("s1", 0.5), ("s2", 0.5)],
+                [("A", {"s1": 0.0, "s2": 0.0}), ("B", {"s1": 0.0, "s2": 1e308})])
+    with pytest.raises(ParameterError, match=r"^alternatives\[1\]\.payoffs\.s1: the range from "
+                                             r"-1e\+308 to 1e\+308 is wider than a double"):
+        one_way(doc, "alternatives[1].payoffs.s1")
+
+
 def test_an_exact_crossing_is_not_marked_as_a_tie():
     # Drill is worth 800 p - 100 and selling 90: they cross at p = 19/80 exactly.
     res = one_way(OIL_LEASE, "states[0].probability", points=11)

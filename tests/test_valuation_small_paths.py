@@ -312,21 +312,23 @@ def test_max_and_min_keep_the_zero_numpy_keeps(length):
         assert bits([small_tree._max(run)]) == bits(fold)
         assert bits([small_tree._max_reduced(run)]) == \
             bits(np.maximum.reduceat(array, [0], axis=1)[0])
-        assert bits([small_tree._max_reduced(run)]) == bits([np.array(run).max()])
         assert bits([small_tree._min(run)]) == bits(np.minimum.reduceat(array, [0], axis=1)[0])
-        assert bits([small_tree._min(run)]) == bits([np.array(run).min()])
 
 
 def test_a_zero_maximum_by_reduction_can_differ_from_the_fold():
-    """Why ``_max_reduced`` exists: on processors where numpy's reduction regroups a run
-    (seen with AVX2, runs of 5), the fold and the reduction keep different zeros. Where
-    they agree (seen with AVX-512) both helpers must still give numpy's answer."""
-    run = [-0.0, -0.0, -0.0, -0.0, 0.0]
+    """Why ``_max_reduced`` exists: where numpy's reduction regroups a run (seen with
+    AVX2 on this run of 5), the fold and the reduction keep different zeros, and each
+    helper must give its own twin's. Elsewhere (seen with AVX-512) the two agree."""
+    run = [0.0, 0.0, 0.0, -0.0, -1.0]
     fold = np.array([run[0]])
     for v in run[1:]:
         np.maximum(fold, np.array([v]), out=fold)
+    reduced = np.maximum.reduceat(np.array([run]), [0], axis=1)[0]
+    if bits(fold) == bits(reduced):
+        pytest.skip("numpy's maximum reduction keeps the fold's zero on this processor")
     assert bits([small_tree._max(run)]) == bits(fold)
-    assert bits([small_tree._max_reduced(run)]) == bits([np.array(run).max()])
+    assert bits([small_tree._max_reduced(run)]) == bits(reduced)
+    assert bits([small_tree._max(run)]) != bits([small_tree._max_reduced(run)])
 
 
 @pytest.mark.parametrize("length", range(1, 9))

@@ -327,6 +327,15 @@ def _tree_label(tree: FlatTree, key) -> str:
 # -- entry points --------------------------------------------------------------------------
 
 
+def row_cells(model: PayoffTable | FlatTree, risk_tolerance: float | None = None) -> int:
+    """Array cells one row of a batch takes (an estimate, to size chunks and rounds)."""
+    if isinstance(model, PayoffTable):
+        widest = max((len(s.signals) for s in model.studies), default=1)
+        factor = 2 * widest if risk_tolerance else widest
+        return len(model.alternatives) * len(model.states) * (2 + factor)
+    return 4 * model.size + 4 * len(model.parent)
+
+
 def evaluate_batch(model: PayoffTable | FlatTree, settings: list[Setting], n_rows: int,
                    risk_tolerance: float | None = None) -> BatchValues:
     """Value ``n_rows`` variants of ``model``: row m has every setting aimed at row m applied.
@@ -334,12 +343,7 @@ def evaluate_batch(model: PayoffTable | FlatTree, settings: list[Setting], n_row
     Rows are evaluated in chunks of at most about ``CHUNK_CELLS`` array cells.
     """
     r = risk_tolerance
-    if isinstance(model, PayoffTable):
-        widest = max((len(s.signals) for s in model.studies), default=1)
-        per_row = len(model.alternatives) * len(model.states) * (2 + (2 * widest if r else widest))
-    else:
-        per_row = 4 * model.size + 4 * len(model.parent)
-    step = max(1, CHUNK_CELLS // max(per_row, 1))
+    step = max(1, CHUNK_CELLS // max(row_cells(model, r), 1))
     # A tornado holds one setting per input: hand each chunk only the settings aimed at its
     # rows, or the chunks x settings loop costs more than the arithmetic.
     first_row = np.array([int(rows.min()) if len(rows) else n_rows for _, rows, _ in settings])

@@ -184,10 +184,10 @@ def _criterion(result: dict, currency: str) -> str:
 
 
 def _worth(be: dict) -> str:
-    """Why the plan changes: an exact crossing, or a tie rule hand-over with no crossing."""
+    """Why the plan changes: an exact crossing, or a tie rule hand-over with no crossing near."""
     if be.get("tie_rule"):
-        return (f"both worth {_num(be['value_from'], 'money')} to within the tie tolerance, "
-                "never exactly the same; the tie rule prefers the first in document order")
+        return (f"they do not cross here: both worth {_num(be['value_from'], 'money')} to within "
+                "the tie tolerance, and the tie rule prefers the first in document order")
     return f"both worth {_num(be['value_from'], 'money')}"
 
 

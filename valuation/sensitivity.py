@@ -27,7 +27,14 @@ from typing import Any
 
 import numpy as np
 
-from valuation.batch import BatchValues, evaluate_batch, first_choice_label, plan_label, plan_value
+from valuation.batch import (
+    BatchValues,
+    evaluate_batch,
+    first_choice_label,
+    plan_label,
+    plan_value,
+    row_cells,
+)
 from valuation.errors import ParameterError
 from valuation.flattree import DECISION, FlatTree
 from valuation.parameters import (
@@ -47,10 +54,19 @@ __all__ = ["one_way", "tornado", "two_way", "sweep_points", "default_range", "BR
 
 #: Break-even values are bracketed until the bracket is this narrow, relative to the value.
 BREAK_EVEN_RTOL = 1e-12
-#: Points tried inside each bracket per round: one batched evaluation narrows every
-#: bracket 16-fold (bisection: 2-fold), so a bracket reaches ``BREAK_EVEN_RTOL`` in
-#: about 10 rounds instead of 40; on small models each round's cost is mostly fixed.
+#: Most points tried inside each bracket per round: one batched evaluation of 15 points
+#: narrows every bracket 16-fold (bisection: 2-fold), so a bracket reaches
+#: ``BREAK_EVEN_RTOL`` in about 10 rounds instead of 40. That pays while a round's cost
+#: is mostly fixed; a large model pays per point, so it gets fewer (see ``_sections``).
 _SECTIONS = 15
+#: Array cells a batched evaluation handles for about its fixed cost (measured order of
+#: magnitude on a 199-node tree: ~1 ms fixed, ~40 ns per cell).
+_CELLS_PER_ROUND = 50_000
+#: Brent's method looks for the crossing of the two plans within this distance of the
+#: hand-over (relative to the parameter's magnitude); further away, the plans are within
+#: the tie tolerance of each other over the whole stretch and the hand-over is the tie
+#: rule's, whatever the grid.
+_CROSSING_NEAR = 1e-6
 #: A one-way sweep has at most this many points; a two-way grid at most this many cells.
 MAX_POINTS = 100_000
 MAX_GRID_POINTS = 1_000_000
@@ -103,6 +119,9 @@ def _grid(model, specs: list[Parameter], spec: Parameter, points, low, high) -> 
     if not lo < hi:
         raise ParameterError(f"{spec.name}: the low end must be below the high end, "
                              f"got {lo:g} and {hi:g}")
+    if not math.isfinite(hi - lo):
+        raise ParameterError(f"{spec.name}: the range from {lo:g} to {hi:g} is wider than a "
+                             f"double can hold (about 1.8e308); give a narrower low and high")
     return np.linspace(lo, hi, points)
 
 
@@ -148,15 +167,17 @@ def _break_evens(model, spec: Parameter, xs: np.ndarray, plans: np.ndarray, r) -
     p_hi = p_right.copy()
     span = float(np.max(np.abs(xs))) if len(xs) else 1.0
     floor = 1e-15 * max(span, 1e-300)
+    sections = _sections(model, r)
     while len(lo) and len(found) < MAX_BREAK_EVENS:
         active = np.ones(len(lo), dtype=bool)
         for _ in range(_MAX_ROUNDS):
-            width = hi - lo
-            active &= width > np.maximum(BREAK_EVEN_RTOL * np.maximum(np.abs(lo), np.abs(hi)), floor)
+            half_width = 0.5 * hi - 0.5 * lo  # halves: hi - lo may overflow across zero
+            active &= half_width > 0.5 * np.maximum(
+                BREAK_EVEN_RTOL * np.maximum(np.abs(lo), np.abs(hi)), floor)
             if not active.any():
                 break
             idx = np.flatnonzero(active)
-            active[idx] = _narrow(model, spec, r, idx, lo, hi, p_lo, p_hi)
+            active[idx] = _narrow(model, spec, r, idx, (lo, hi, p_lo, p_hi), sections)
         for m in range(len(lo)):
             found.append((0.5 * (lo[m] + hi[m]), left[m], right[m], p_lo[m].copy(), p_hi[m].copy()))
         # The plan just past a break-even may change again before the right end: go on from there.
@@ -178,24 +199,32 @@ def _break_evens(model, spec: Parameter, xs: np.ndarray, plans: np.ndarray, r) -
     return out
 
 
-def _narrow(model, spec: Parameter, r, idx: np.ndarray, lo: np.ndarray, hi: np.ndarray,
-            p_lo: np.ndarray, p_hi: np.ndarray) -> np.ndarray:
-    """One round on brackets ``idx``: the first of ``_SECTIONS`` inner points whose plan
-    differs from the plan at ``lo`` becomes ``hi``, the point before it ``lo`` (in place).
+def _sections(model, r) -> int:
+    """Points per bracket per round: up to ``_SECTIONS`` while a round's cost is mostly
+    fixed, down to 1 (bisection) for a model whose every point costs."""
+    return int(min(_SECTIONS, max(1, _CELLS_PER_ROUND // max(row_cells(model, r), 1))))
+
+
+def _narrow(model, spec: Parameter, r, idx: np.ndarray, brackets: tuple, sections: int) -> np.ndarray:
+    """One round on brackets ``idx``: the first of ``sections`` inner points whose plan
+    differs from the plan at ``lo`` becomes ``hi``, the point before it ``lo`` (in place
+    in ``brackets``: lo, hi, plan at lo, plan at hi).
 
     Returns which brackets narrowed: a bracket a few ulps wide has no inner point left.
     """
+    lo, hi, p_lo, p_hi = brackets
     k = len(idx)
-    steps = np.arange(1, _SECTIONS + 1) / (_SECTIONS + 1)
-    points = lo[idx, None] + (hi[idx] - lo[idx])[:, None] * steps
+    t = np.arange(1, sections + 1) / (sections + 1)
+    # Weighted, not lo + (hi - lo) * t: the width of a bracket across zero may overflow.
+    points = lo[idx, None] * (1.0 - t) + hi[idx, None] * t
     points = np.minimum(np.maximum(points, lo[idx, None]), hi[idx, None])
-    plans = _run(model, spec, points.ravel(), r).plan.reshape(k, _SECTIONS, -1)
+    plans = _run(model, spec, points.ravel(), r).plan.reshape(k, sections, -1)
     differs = np.any(plans != p_lo[idx, None, :], axis=2)
     any_differ = differs.any(axis=1)
-    first = np.where(any_differ, differs.argmax(axis=1), _SECTIONS)
+    first = np.where(any_differ, differs.argmax(axis=1), sections)
     rows = np.arange(k)
     new_lo = np.where(first > 0, points[rows, np.maximum(first - 1, 0)], lo[idx])
-    new_hi = np.where(any_differ, points[rows, np.minimum(first, _SECTIONS - 1)], hi[idx])
+    new_hi = np.where(any_differ, points[rows, np.minimum(first, sections - 1)], hi[idx])
     moved = (new_lo > lo[idx]) | (new_hi < hi[idx])
     lo[idx], hi[idx] = new_lo, new_hi
     changed = idx[any_differ]
@@ -215,11 +244,12 @@ def _refine(model, spec: Parameter, x_switch: float, left: float, right: float, 
     (Brent, R. P., *Algorithms for Minimization without Derivatives*, 1973, ch. 4, as
     implemented by ``scipy.optimize.brentq``).
 
-    Two plans can also hand over without ever crossing: when they differ by less than
+    Two plans can also hand over without crossing there: while they differ by less than
     the tie tolerance, which is relative to the best value, the tie rule prefers the
     first in document order until the values grow small enough for the gap to count.
     Then the switch point is kept, the two values differ by the tie tolerance there,
-    and the last item returned (whether they cross) is False.
+    and the last item returned (whether they cross near it) is False. They may cross
+    further away (see ``_CROSSING_NEAR``); that crossing is not where the plan changes.
     """
 
     def values(x: float) -> tuple[float, float]:
@@ -232,13 +262,16 @@ def _refine(model, spec: Parameter, x_switch: float, left: float, right: float, 
         return va - vb
 
     step = max(abs(x_switch) * 1e-10, floor)
+    # Only near the hand-over: see ``_CROSSING_NEAR``.
+    near = max(abs(x_switch), floor * 1e15) * _CROSSING_NEAR
+    left, right = max(left, x_switch - near), min(right, x_switch + near)
     lo, hi = _first_bracket(model, spec, r, a, b, x_switch, left, right, step)
     g_lo, g_hi = gap(lo), gap(hi)
     while g_lo * g_hi > 0 and (lo > left or hi < right):
         step = max(step, x_switch - lo, hi - x_switch) * 16.0
         lo, hi = max(left, x_switch - step), min(right, x_switch + step)
         g_lo, g_hi = gap(lo), gap(hi)
-    crossed = True
+    x = None
     if g_lo == 0.0:
         x = lo
     elif g_hi == 0.0:
@@ -246,9 +279,13 @@ def _refine(model, spec: Parameter, x_switch: float, left: float, right: float, 
     elif g_lo * g_hi < 0:
         from scipy.optimize import brentq  # imported on use: scipy is slow to import
 
-        x = float(brentq(gap, lo, hi, xtol=max(floor, 1e-300), rtol=4 * np.finfo(float).eps))
-    else:  # no sign change (the two plans never cross exactly): keep the switch point
-        x, crossed = float(x_switch), False
+        try:
+            x = float(brentq(gap, lo, hi, xtol=max(floor, 1e-300), rtol=4 * np.finfo(float).eps))
+        except RuntimeError:  # no convergence (amounts near the limits of a double)
+            x = None
+    crossed = x is not None
+    if not crossed:  # no crossing near the hand-over: the tie rule's, at the switch point
+        x = float(x_switch)
     va, vb = values(x)
     return x, va, vb, crossed
 
@@ -262,13 +299,15 @@ def _first_bracket(model, spec: Parameter, r, a, b, x_switch: float, left: float
     batch that differed from them in the last bit could only cost a further round.
     """
     reach = max(x_switch - left, right - x_switch, step)
-    grow = 16.0 ** np.arange(min(math.ceil(math.log(reach / step, 16.0)), 300) + 1)
+    ratio = reach / step
+    count = math.ceil(math.log(ratio, 16.0)) if math.isfinite(ratio) else 300
+    grow = 16.0 ** np.arange(min(count, 300) + 1)
     ends = np.concatenate([np.maximum(left, x_switch - step * grow),
                            np.minimum(right, x_switch + step * grow)])
     setting = [(spec, np.arange(len(ends)), ends)]
     gaps = plan_value(model, setting, len(ends), a, r) - plan_value(model, setting, len(ends), b, r)
     k = len(grow)
-    across = np.flatnonzero(gaps[:k] * gaps[k:] <= 0)
+    across = np.flatnonzero(np.sign(gaps[:k]) * np.sign(gaps[k:]) <= 0)
     pick = int(across[0]) if len(across) else k - 1
     return float(ends[pick]), float(ends[k + pick])
 
@@ -327,9 +366,10 @@ def one_way(doc: Any, parameter: str, values=None, *, points: int = 41, low: flo
         study option, tables only), ``break_even`` and ``note``. Each break-even holds
         ``value`` (the parameter value where plan ``from`` hands over to plan ``to``),
         ``first_choice_from`` / ``first_choice_to``, ``value_from`` / ``value_to`` (both
-        plans' values there, equal up to rounding), ``tie_rule`` (True when the two never
-        cross: they stay within the tie tolerance of each other, and the hand-over comes
-        from the tie rule, so ``value_from`` and ``value_to`` differ by that tolerance)
+        plans' values there, equal up to rounding), ``tie_rule`` (True when the two do not
+        cross near the hand-over: they stay within the tie tolerance of each other, and
+        the hand-over comes from the tie rule, so ``value_from`` and ``value_to`` differ
+        by that tolerance)
         and ``problem_value``. Amounts in the
         objective's units (expected costs for "min").
 

@@ -64,10 +64,11 @@ class TokenAuthentication(authentication.TokenAuthentication):
 
     def authenticate(self, request):
         try:
-            return super().authenticate(request)
+            authentication.get_authorization_header(request)  # what DRF reads first
         except UnicodeEncodeError:
             raise AuthenticationFailed(_("Invalid token header. Token string should not "
                                          "contain invalid characters.")) from None
+        return super().authenticate(request)
 
     def authenticate_credentials(self, key):
         if "\x00" in key:

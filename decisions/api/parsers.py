@@ -57,26 +57,28 @@ def _no_duplicates(pairs):
     return out
 
 
-def _objects(data) -> list[dict]:
-    """Every object in ``data``, level by level, depth-checked.
+def _levels(data):
+    """``data`` level by level: each level's objects and the values inside its containers.
 
-    One walk over the containers, which the parser's fast path needs anyway: the
-    parser's own recursion guard (RecursionError) has already stopped pathological
-    nesting, and an earlier scan of the raw text had to skip every string and cost
-    more than the parse itself.
+    Iterative, depth-checked: the parser's own recursion guard (RecursionError) has
+    already stopped pathological nesting, and an earlier scan of the raw text had to
+    skip every string and cost more than the parse itself.
     """
-    objects: list[dict] = []
     level, depth = [data], 1
     while level:
         if depth > MAX_DEPTH:
             raise BodyProblem(f"must not nest deeper than {MAX_DEPTH} levels")
         found = [item for item in level if type(item) is dict]
-        objects += found
         values = [v for item in found for v in item.values()]
         values += [v for item in level if type(item) is list for v in item]
+        yield found, values
         level = [v for v in values if type(v) is dict or type(v) is list]
         depth += 1
-    return objects
+
+
+def _objects(data) -> list[dict]:
+    """Every object in ``data`` (and the depth rule checked on the way)."""
+    return [item for found, _ in _levels(data) for item in found]
 
 
 def _check_nul(value, path: str = "body") -> None:
@@ -126,23 +128,18 @@ def _may_hide_a_duplicate(text: str, data) -> bool:
     entries, colons = sum(map(len, _objects(data))), text.count(":")
     if colons == entries:
         return False
-    if "\\u003" in text:  # perhaps an escaped colon, which the count below would miss
+    if "\\u003a" in text or "\\u003A" in text:  # an escaped colon: the count below misses it
         return True
     return colons - _colons_in_strings(data) != entries
 
 
 def _colons_in_strings(data) -> int:
     """Colons inside the keys and string values of ``data``: with no escaped colon in
-    the body, the body's colons less these are its members. Level by level, each
-    level's strings joined and counted at once."""
-    total, level = 0, [data]
-    while level:
-        found = [item for item in level if type(item) is dict]
-        values = [v for item in found for v in item.values()]
-        values += [v for item in level if type(item) is list for v in item]
+    the body, the body's colons less these are its members."""
+    total = 0
+    for found, values in _levels(data):
         total += "".join(chain.from_iterable(found)).count(":")
         total += "".join([v for v in values if type(v) is str]).count(":")
-        level = [v for v in values if type(v) is dict or type(v) is list]
     return total
 
 

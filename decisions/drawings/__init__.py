@@ -11,6 +11,8 @@ from reportlab import rl_config
 # reportlab checks every attribute set on a shape against its type map. Its own
 # settings call this a development aid that slows shapes down (rl_settings.py,
 # ``shapeChecking``); the drawings here are built by this package alone and checked
-# by its tests (tests/test_drawings*.py), so it is off. Set before any module of
-# this package imports reportlab.graphics.shapes, which reads it once.
+# by its tests (tests/test_drawings.py), so it is off, for the whole process. Set
+# before this package imports reportlab.graphics.shapes: that module then defines no
+# checking ``__setattr__`` at all (imported earlier, it keeps one that finds the
+# setting off on each call).
 rl_config.shapeChecking = 0

@@ -358,9 +358,28 @@ def test_decision_page_draws_the_tree_and_charts_as_inline_svg(draft, people):
     assert "<script" not in page.split("<footer")[0].split('id="sensitivity"')[1]
 
 
+def test_a_tie_rule_break_even_is_marked_and_explained_on_the_page(people):
+    # Invented model: Later is 2e-9 better in every state, which counts only once the
+    # best value falls under 2, at P(s1) = 0.8 (tie tolerance 1e-9 x the best value).
+    doc = {"kind": "payoff_table", "title": "Tie check (invented)",
+           "states": [{"name": "s1", "probability": 0.5}, {"name": "s2", "probability": 0.5}],
+           "alternatives": [{"name": "First", "payoffs": {"s1": 0.0, "s2": 10.0}},
+                            {"name": "Later", "payoffs": {"s1": 2e-9, "s2": 10.0 + 2e-9}}],
+           "studies": []}
+    decision = svc.create_decision(actor=people.ana, team=people.team, title="Tie (invented)",
+                                   policy={"financial review": 1})
+    svc.save_version(decision.pk, actor=people.ana, document=doc, change_note="tie",
+                     if_match=IF_MATCH_ANY)
+    url = page_urls(decision)["decision"] + "?input=states[0].probability"
+    page = html(client_as(people.ana).get(url))
+    assert re.search(r"Break-even: 0\.8(000)? \(tie rule\)\.", page), page.split("Break-even")[1][:200]
+    assert "the first in document order is preferred until the gap counts" in page
+
+
 def test_one_way_sensitivity_to_the_chosen_input_shows_the_break_even(draft, people):
     # Deep well vs gas: 9e6 p - 1e6 (1 - p) = 2.5e6 at p = 0.35 (by hand).
     url = page_urls(draft)["decision"] + "?input=states[0].probability"
     page = html(client_as(people.vic).get(url))
     assert '<option value="states[0].probability" selected>' in page
     assert re.search(r"Break-even: 0\.35(00)?\b", page)
+    assert "(tie rule)" not in page

@@ -50,7 +50,12 @@ from valuation.table import PayoffTable
 from valuation.utility import check_risk_tolerance
 
 __all__ = ["one_way", "tornado", "two_way", "sweep_points", "default_range", "BREAK_EVEN_RTOL",
-           "MAX_GRID_POINTS", "MAX_POINTS"]
+           "MAX_GRID_POINTS", "MAX_POINTS", "TIE_RULE_NOTE"]
+
+#: Said beside break-evens marked ``tie_rule`` (web page and memo).
+TIE_RULE_NOTE = ("A break-even marked (tie rule) is where two plans that do not cross there "
+                 "stay within the tie tolerance of each other (1e-9 of the best value): the "
+                 "first in document order is preferred until the gap counts.")
 
 #: Break-even values are bracketed until the bracket is this narrow, relative to the value.
 BREAK_EVEN_RTOL = 1e-12

@@ -19,6 +19,7 @@ from decisions.drawings.tree import tree_legend, tree_parts
 from decisions.memo.profile import plan_profile
 from decisions.memo.styles import CAUTION, S, table_style
 from valuation.errors import ValuationError
+from valuation.sensitivity import TIE_RULE_NOTE
 
 __all__ = ["story", "title_block", "summary", "tree_section", "MAX_TABLE_ROWS"]
 
@@ -323,15 +324,20 @@ def sensitivity_section(data: dict, width: float) -> list:
         out.append(_table(rows, [width - 2 * 62 - 3 * 78, 62, 62, 78, 78, 78], numeric_from=1))
     sweeps = sens.get("one_way") or []
     be_rows = [["Input", "Break-even value", "Plan below", "Plan above"]]
+    tie_rule = False
     for sweep in sweeps:
         for be in sweep.get("break_even") or []:
+            value = _input_value(be["value"], sweep.get("kind"))
+            tie_rule = tie_rule or bool(be.get("tie_rule"))
             be_rows.append([cell(sweep.get("label") or sweep.get("parameter")),
-                            _input_value(be["value"], sweep.get("kind")),
+                            f"{value} (tie rule)" if be.get("tie_rule") else value,
                             cell(_short(be.get("from", ""))), cell(_short(be.get("to", "")))])
     out.append(p("Break-even values", "h2"))
     if len(be_rows) > 1:
         be_rows, more = _cut_rows(be_rows, "break-even values")
         out += [_table(be_rows, [width - 300, 80, 110, 110], numeric_from=None), *more]
+        if tie_rule:
+            out.append(p(TIE_RULE_NOTE, "small"))
     else:
         out.append(p("No input swept here changes the best plan within its range.", "small"))
     for sweep in sweeps[:4]:

@@ -14,7 +14,7 @@ from decisions.drawings.render import to_svg
 from decisions.drawings.tree import tree_drawings, tree_legend
 from valuation import expand
 from valuation.errors import ValuationError
-from valuation.sensitivity import one_way, tornado
+from valuation.sensitivity import TIE_RULE_NOTE, one_way, tornado
 
 __all__ = ["figures"]
 
@@ -65,4 +65,6 @@ def figures(document: dict, results: dict, *, chosen_input: str | None) -> dict:
             out["oneway_svg"] = _svg(sensitivity_chart(sweep, currency=cur),
                                      f"One-way sensitivity to {sweep.get('label')}", "oneway")
             out["break_even"] = sweep.get("break_even") or []
+            if any(b.get("tie_rule") for b in out["break_even"]):
+                out["tie_rule_note"] = TIE_RULE_NOTE
     return out

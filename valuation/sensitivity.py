@@ -509,23 +509,15 @@ def tornado(doc: Any, *, swing: float = 0.2, probability_step: float = 0.1,
     settings = [(spec, np.array([2 * m, 2 * m + 1]), np.array([lows[m], highs[m]]))
                 for m, spec in enumerate(chosen)]
     bv = evaluate_batch(model, settings, 2 * n, r)
-    # Most inputs leave the plan as it is: label each distinct plan once.
-    labels: dict[bytes, str] = {}
-
-    def label(row: int) -> str:
-        key = bv.plan[row]
-        text = labels.get(key.tobytes())
-        if text is None:
-            text = labels[key.tobytes()] = plan_label(model, key)
-        return text
-
+    # Most inputs leave the plan as it is: each distinct plan is labelled once.
+    labels, index = _labels(model, bv.plan)
     rows = []
     for m, spec in enumerate(chosen):
         v_low, v_high = float(bv.value[2 * m]), float(bv.value[2 * m + 1])
         rows.append({"name": spec.name, "label": spec.label, "kind": spec.kind, "base": spec.base,
                      "low": lows[m], "high": highs[m], "value_low": v_low, "value_high": v_high,
                      "swing": abs(v_high - v_low),
-                     "plan_low": label(2 * m), "plan_high": label(2 * m + 1)})
+                     "plan_low": labels[index[2 * m]], "plan_high": labels[index[2 * m + 1]]})
     rows.sort(key=lambda row: -row["swing"])
     return rows
 

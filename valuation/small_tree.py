@@ -548,8 +548,7 @@ def _root_values(lt: ListTree, r: float | None) -> tuple[list[float], list]:
             f = first[i]
             bv = [cash[b] + value[child[b]] for b in range(f, f + count[i])]
             branch_values[i] = bv
-            top = max(bv)
-            value[i] = top if top != 0 else _max_reduced(bv)
+            value[i] = _max_reduced(bv)
     return value, branch_values
 
 

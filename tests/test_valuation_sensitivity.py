@@ -271,6 +271,10 @@ def test_a_default_range_wider_than_a_double_is_refused_by_name():
         one_way(doc, "alternatives[1].payoffs.s1")
 
 
+def test_a_tornado_over_no_inputs_has_no_rows():
+    assert tornado(TABLE, parameters=[]) == []
+
+
 def test_an_exact_crossing_is_not_marked_as_a_tie():
     # Drill is worth 800 p - 100 and selling 90: they cross at p = 19/80 exactly.
     res = one_way(OIL_LEASE, "states[0].probability", points=11)

@@ -506,6 +506,8 @@ def tornado(doc: Any, *, swing: float = 0.2, probability_step: float = 0.1,
         lows.append(low)
         highs.append(high)
     n = len(chosen)
+    if not n:  # no input to move (an empty ``parameters``): no rows, rather than a batch of none
+        return []
     settings = [(spec, np.array([2 * m, 2 * m + 1]), np.array([lows[m], highs[m]]))
                 for m, spec in enumerate(chosen)]
     bv = evaluate_batch(model, settings, 2 * n, r)

@@ -217,26 +217,26 @@ def test_sensitivity_section_shows_break_evens_from_the_data():
     assert "P(hot) 0.3000 0.5000 2,500,000.00 4,000,000.00 1,500,000.00" in text
 
 
-def test_a_tie_rule_break_even_is_marked_and_explained():
+def _memo_text_with_break_even(break_even: dict) -> str:
+    """The memo's text when one sweep of P(hot) has the one break-even given."""
     data = demo_data(small_table(), sensitivity={
         "tornado": [],
         "one_way": [{"parameter": "states[0].probability", "label": "P(hot)",
                      "kind": "probability", "base": 0.4, "x": [0.0, 1.0], "value": [1.0, 2.0],
-                     "break_even": [{"value": 0.8, "from": "First", "to": "Later",
-                                     "tie_rule": True}]}]})
-    text = text_of(build_memo(data))
+                     "break_even": [break_even]}]})
+    return text_of(build_memo(data))
+
+
+def test_a_tie_rule_break_even_is_marked_and_explained():
+    text = _memo_text_with_break_even({"value": 0.8, "from": "First", "to": "Later",
+                                       "tie_rule": True})
     assert "P(hot) 0.8000 (tie rule) First Later" in text
     assert " ".join(TIE_RULE_NOTE.split()) in " ".join(text.split())
 
 
 def test_an_exact_break_even_is_not_marked():
-    data = demo_data(small_table(), sensitivity={
-        "tornado": [],
-        "one_way": [{"parameter": "states[0].probability", "label": "P(hot)",
-                     "kind": "probability", "base": 0.4, "x": [0.0, 1.0], "value": [1.0, 2.0],
-                     "break_even": [{"value": 0.35, "from": "Stay on gas", "to": "Deep well",
-                                     "tie_rule": False}]}]})
-    text = text_of(build_memo(data))
+    text = _memo_text_with_break_even({"value": 0.35, "from": "Stay on gas", "to": "Deep well",
+                                       "tie_rule": False})
     assert "P(hot) 0.3500 Stay on gas Deep well" in text
     assert "(tie rule)" not in text
 

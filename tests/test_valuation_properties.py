@@ -18,6 +18,7 @@ from hypothesis import strategies as st
 
 import valuation
 from tests.strategies import payoff_tables, trees
+from valuation.limits import TIE_TOLERANCE
 
 SETTINGS = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
@@ -193,6 +194,37 @@ def test_ties_are_broken_by_document_order_and_reported():
     assert result["policy"]["steps"][0]["choice"] == "first"
     assert result["ties"] == [{"node": "d", "chosen": "first", "branches": ["first", "second"]}]
     assert result["nodes"]["d"]["pruned"] == ["second"]
+
+
+def test_a_reported_tie_lists_exactly_the_branches_within_the_tie_tolerance():
+    # Our own rule (valuation.limits.TIE_TOLERANCE, relative to the best value): the
+    # branches a tie lists must be the ones the rollback weighed as tied, so one just
+    # inside the tolerance is listed and one just outside is not.
+    top = 1000.0
+    inside = top - 0.5 * TIE_TOLERANCE * top
+    outside = top - 3.0 * TIE_TOLERANCE * top
+    doc = {"kind": "tree", "title": "t", "root": "d", "nodes": [
+        {"id": "d", "kind": "decision", "name": "Pick", "branches": [
+            {"label": "best", "to": "e1"}, {"label": "inside", "to": "e2"},
+            {"label": "outside", "to": "e3"}]},
+        {"id": "e1", "kind": "end", "payoff": top}, {"id": "e2", "kind": "end", "payoff": inside},
+        {"id": "e3", "kind": "end", "payoff": outside}]}
+    result = valuation.evaluate(doc)
+    assert result["ties"] == [{"node": "d", "chosen": "best", "branches": ["best", "inside"]}]
+    doc["nodes"][2]["payoff"] = outside
+    assert valuation.evaluate(doc)["ties"] == []
+
+
+def test_a_payoff_table_tie_lists_exactly_the_alternatives_within_the_tie_tolerance():
+    # The same rule for a payoff table's alternatives (valuation.table_eval.first_best).
+    top = 1000.0
+    doc = {"kind": "payoff_table", "title": "t", "states": [{"name": "x", "probability": 1.0}],
+           "alternatives": [
+               {"name": "best", "payoffs": {"x": top}},
+               {"name": "inside", "payoffs": {"x": top - 0.5 * TIE_TOLERANCE * top}},
+               {"name": "outside", "payoffs": {"x": top - 3.0 * TIE_TOLERANCE * top}}]}
+    ties = valuation.evaluate(doc)["ties"]
+    assert ties == [{"node": "decide", "branches": ["best", "inside"], "chosen": "best"}]
 
 
 def test_a_signal_that_cannot_occur_is_flagged_not_divided_by():

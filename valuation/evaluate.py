@@ -16,7 +16,12 @@ from valuation.checks import Problems, describe
 from valuation.errors import ModelValidationError, Problem
 from valuation.expand import NO_STUDY, expand_table, expanded_size
 from valuation.flattree import CHANCE, DECISION, FlatTree, build_tree, rollback
-from valuation.limits import DETAIL_NODE_LIMIT, EXPAND_NODE_LIMIT, INFORMATION_NODE_LIMIT
+from valuation.limits import (
+    DETAIL_NODE_LIMIT,
+    EXPAND_NODE_LIMIT,
+    INFORMATION_NODE_LIMIT,
+    TIE_TOLERANCE,
+)
 from valuation.table import PayoffTable, parse_payoff_table
 from valuation.table_eval import TableValues, value_table
 from valuation.tree_eval import (
@@ -240,13 +245,13 @@ def _table_ties(t: PayoffTable, tv: TableValues) -> list[dict]:
     if tv.best_tie:
         top = tv.criterion_by_alternative[tv.best]
         tied = [t.alternatives[i] for i in range(len(t.alternatives))
-                if abs(tv.criterion_by_alternative[i] - top) <= 1e-9 * max(1.0, abs(top))]
+                if abs(tv.criterion_by_alternative[i] - top) <= TIE_TOLERANCE * max(1.0, abs(top))]
         ties.append({"node": "decide", "branches": tied, "chosen": t.alternatives[tv.best]})
     if tv.option_tie:
         names = [NO_STUDY] + [s.name for s in t.studies]
         top = tv.option_values[tv.chosen_option]
         tied = [names[i] for i in range(len(names))
-                if abs(tv.option_values[i] - top) <= 1e-9 * max(1.0, abs(top))]
+                if abs(tv.option_values[i] - top) <= TIE_TOLERANCE * max(1.0, abs(top))]
         ties.append({"node": "study-choice", "branches": tied, "chosen": names[tv.chosen_option]})
     return ties
 
@@ -375,7 +380,10 @@ def _tied_labels(tree: FlatTree, rb, node: int) -> list[str]:
     f, c = int(tree.first_branch[node]), int(tree.branch_count[node])
     vals = np.array([tree.cash[b] + rb.value[tree.child[b]] for b in range(f, f + c)])
     top = vals.max()
-    return [tree.labels[f + j] for j in np.flatnonzero(vals >= top - 1e-9 * max(1.0, abs(top)))]
+    # The rollback's own rule (``TIE_TOLERANCE``), so the branches listed are the ones it
+    # weighed as tied.
+    return [tree.labels[f + j]
+            for j in np.flatnonzero(vals >= top - TIE_TOLERANCE * max(1.0, abs(top)))]
 
 
 def _learning_values(form: _TreeForm, rb, warnings: list[str]) -> list[dict]:

@@ -181,6 +181,10 @@ def _wrk_answers(r: dict | None) -> str:
         else f"{r['status_errors']:,} 4xx/5xx, {r['transport_errors']:,} transport errors"
 
 
+def _heartbeat_folder() -> str:
+    return lt.WORKER_TMP_DIR[-1] if lt.WORKER_TMP_DIR else "the default temporary folder"
+
+
 def _median_round(rounds: list[dict | None]) -> dict | None:
     """The round whose p95 is the median of the rounds' (None when wrk is missing)."""
     if any(r is None for r in rounds):
@@ -215,7 +219,8 @@ def _report(body, one, cpu, floor_cpu, growth, rounds, floor_wrk, threads, threa
     main = by_wrk or t
     lines = [
         f"gunicorn {WORKERS} sync workers (start-up objects frozen out of garbage collection, "
-        f"the default: decisions/serving.py), DEBUG off, throttles lifted (per second), throwaway "
+        f"the default: decisions/serving.py; heartbeat file in {_heartbeat_folder()}, as in the "
+        f"README's deployment command), DEBUG off, throttles lifted (per second), throwaway "
         f"SQLite file; tree of 199 nodes ({len(body) / 1024:.0f} KiB of JSON, encoded once); "
         f"{CLIENTS} clients in a closed loop, a new connection per request, 127.0.0.1 only: "
         f"wrk (2 threads, {ROUNDS} rounds of {ROUND_SECONDS:.0f} s, in turn with a second "
@@ -264,7 +269,8 @@ def _gunicorn(env: dict, log_path: Path, port: int):
     log = open(log_path, "a")  # noqa: SIM115 - closed in finally
     proc = subprocess.Popen(
         [PYTHON, "-m", "gunicorn", "decisions.wsgi", "--bind", f"{lt.HOST}:{port}",
-         "--workers", str(WORKERS), "--timeout", "60", "--graceful-timeout", "5"],
+         "--workers", str(WORKERS), "--timeout", "60", "--graceful-timeout", "5",
+         *lt.WORKER_TMP_DIR],
         cwd=ROOT, env=env, stdout=log, stderr=subprocess.STDOUT)
     try:
         main_port, lt.PORT = lt.PORT, port  # the load script's helpers read its PORT

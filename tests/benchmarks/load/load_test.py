@@ -51,6 +51,11 @@ from scratch_db import admin_url, recreate  # noqa: E402 - after the path
 
 SCRATCH = "register_load"
 HOST, PORT = "127.0.0.1", 8765
+# The heartbeat folder of the README's deployment command: gunicorn's documentation warns
+# that on a disk-backed folder the heartbeat can stall a worker.
+# (gunicorn makes its file there with mkstemp and unlinks it at once.)
+_SHM = "/dev/shm"  # noqa: S108 - a folder gunicorn's mkstemp writes into, not a fixed file name
+WORKER_TMP_DIR = ["--worker-tmp-dir", _SHM] if os.path.isdir(_SHM) else []
 PASSWORD = "load test password 7"  # invented users of a scratch database
 RESULTS = ROOT / "tests" / "benchmarks" / "LOAD_RESULTS.md"
 MIX = [("list", 30), ("view", 35), ("evaluate", 15), ("save", 10), ("sign", 10)]
@@ -426,7 +431,8 @@ def main() -> None:
     log = open(data_dir / "gunicorn.log", "w")  # noqa: SIM115 - closed in finally
     proc = subprocess.Popen(
         [sys.executable, "-m", "gunicorn", "decisions.wsgi", "--bind", f"{HOST}:{PORT}",
-         "--workers", str(args.workers), "--timeout", "60", "--graceful-timeout", "5"],
+         "--workers", str(args.workers), "--timeout", "60", "--graceful-timeout", "5",
+         *WORKER_TMP_DIR],
         cwd=ROOT, env=env, stdout=log, stderr=subprocess.STDOUT)
     try:
         _wait_until_up(proc)

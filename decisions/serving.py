@@ -14,6 +14,13 @@ moment to a permanent generation that later collections skip. After it, in the s
 measurement, the longest pause was 5.6 ms and the collector took 8 % of the CPU. The
 objects frozen are the ones that live as long as the process anyway; cyclic garbage
 made later is collected as before.
+(The in-process figures came from a scratch script, not kept: the WSGI application called
+directly in a loop, with a ``gc.callbacks`` timer. Under load the API benchmark compares
+the two in one run, a server with ``GC_FREEZE=false`` beside the default one:
+``python -m pytest tests/benchmarks/test_bench_api.py -m benchmark -s``, figures in
+tests/benchmarks/RESULTS.md; in its five runs of 2026-12-02, median rounds, the frozen
+workers' p99 was 55-70 ms against 80-100 ms, their longest answer 61-100 ms against
+133-159 ms, their p95 49-65 ms against 55-72 ms.)
 
 Django imports the views on the first request; importing the URL configuration first
 puts them and everything they import among the frozen objects too. Under

@@ -23,7 +23,7 @@ hypothesis_settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "default")
 # The test process is no app server: importing decisions.wsgi (tests/test_fuzz_schema.py)
 # must not freeze the garbage collector's objects for the rest of the run
 # (decisions/serving.py; tests/test_serving.py turns it back on where it is the subject).
-os.environ.setdefault("GC_FREEZE", "false")
+os.environ["GC_FREEZE"] = "false"
 
 @pytest.fixture(autouse=True)
 def _skip_postgres_only(request):

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import pytest
 from django.core.exceptions import ImproperlyConfigured
-from django.urls import get_resolver
+from django.urls import clear_url_caches, get_resolver
 
 from decisions.serving import prepare_process
 
@@ -29,6 +29,8 @@ def unfrozen():
 
 def test_it_freezes_the_objects_alive_at_start_up(monkeypatch, unfrozen):
     monkeypatch.delenv("GC_FREEZE", raising=False)
+    clear_url_caches()  # earlier tests' requests may have read the URL configuration already
+    assert "url_patterns" not in get_resolver().__dict__
     assert gc.get_freeze_count() == 0
     assert prepare_process() is True
     # Python's own count of the objects moved to the permanent generation; the test
@@ -40,7 +42,9 @@ def test_it_freezes_the_objects_alive_at_start_up(monkeypatch, unfrozen):
 
 def test_objects_made_after_the_freeze_are_still_collected(monkeypatch, unfrozen):
     monkeypatch.setenv("GC_FREEZE", "true")
-    prepare_process()
+    assert prepare_process() is True
+    assert gc.get_freeze_count() > 0
+    assert gc.isenabled()  # freezing leaves the collector on for what comes after
 
     class Node:
         pass

@@ -37,6 +37,7 @@ from valuation.batch import (
 )
 from valuation.errors import ParameterError
 from valuation.flattree import DECISION, FlatTree
+from valuation.limits import TIE_TOLERANCE
 from valuation.parameters import (
     MONEY_KINDS,
     PROBABILITY_KINDS,
@@ -52,10 +53,11 @@ from valuation.utility import check_risk_tolerance
 __all__ = ["one_way", "tornado", "two_way", "sweep_points", "default_range", "BREAK_EVEN_RTOL",
            "MAX_GRID_POINTS", "MAX_POINTS", "TIE_RULE_NOTE"]
 
+_TOLERANCE_TEXT = format(TIE_TOLERANCE, "g").replace("e-0", "e-")  # 1e-9, not 1e-09
 #: Said beside break-evens marked ``tie_rule`` (web page and memo).
 TIE_RULE_NOTE = ("A break-even marked (tie rule) is where two plans that do not cross there "
-                 "stay within the tie tolerance of each other (1e-9 of the best value): the "
-                 "first in document order is preferred until the gap counts.")
+                 f"stay within the tie tolerance of each other ({_TOLERANCE_TEXT} of the best "
+                 "value): the first in document order is preferred until the gap counts.")
 
 #: Break-even values are bracketed until the bracket is this narrow, relative to the value.
 BREAK_EVEN_RTOL = 1e-12

@@ -207,8 +207,9 @@ def _freeze_summary(rounds: list[dict], unfrozen_rounds: list[dict]) -> str:
 
 def _round_rows(label: str, rounds: list[dict | None], judged: bool) -> list[str]:
     middle = _median_round(rounds)
-    return [_row(f"{label}, round {i} of {len(rounds)}{' (median p95)' if r is middle else ''}",
-                 r, _wrk_answers(r), bold=judged and r is middle)
+    return [_row(f"{label}, round {i} of {len(rounds)}"
+                 f"{' (median p95)' if r is not None and r is middle else ''}",
+                 r, _wrk_answers(r), bold=judged and r is not None and r is middle)
             for i, r in enumerate(rounds, 1)]
 
 
@@ -305,6 +306,8 @@ def test_evaluate_endpoint_p95_with_16_clients(tmp_path, monkeypatch):
     # that the view refuses at once (400), so no evaluation and a short answer.
     floor_body = json.dumps({"document": {"kind": "tree"}}).encode()
     unfrozen_env, unfrozen_port = {**env, "GC_FREEZE": "false"}, _free_port()
+    while unfrozen_port == lt.PORT:  # two draws of a free port may coincide
+        unfrozen_port = _free_port()
     with _gunicorn(env, tmp_path / "gunicorn.log", lt.PORT) as pids, \
             _gunicorn(unfrozen_env, tmp_path / "gunicorn-unfrozen.log", unfrozen_port) as u_pids:
         status, _, answer = lt._request("POST", "/api/evaluate/", token, {"document": tree})

@@ -316,9 +316,10 @@ def closed_loop(path: str, clients: int, seconds: float, max_requests: int = 200
 
 
 def _wait_until_up(proc, timeout=120.0):
-    # Each worker imports the URL map (numpy, scipy, reportlab...) on its first
-    # request: several seconds per worker on a small machine, so wait generously
-    # and warm every worker before measuring.
+    # Each worker imports the URL map (numpy, scipy, reportlab...) as it starts
+    # (decisions/serving.py; on its first request with GC_FREEZE=false): several
+    # seconds per worker on a small machine, so wait generously and warm every
+    # worker before measuring.
     end, last = time.time() + timeout, "nothing"
     while time.time() < end:
         if proc.poll() is not None:

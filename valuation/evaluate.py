@@ -16,14 +16,9 @@ from valuation.checks import Problems, describe
 from valuation.errors import ModelValidationError, Problem
 from valuation.expand import NO_STUDY, expand_table, expanded_size
 from valuation.flattree import CHANCE, DECISION, FlatTree, build_tree, rollback
-from valuation.limits import (
-    DETAIL_NODE_LIMIT,
-    EXPAND_NODE_LIMIT,
-    INFORMATION_NODE_LIMIT,
-    TIE_TOLERANCE,
-)
+from valuation.limits import DETAIL_NODE_LIMIT, EXPAND_NODE_LIMIT, INFORMATION_NODE_LIMIT
 from valuation.table import PayoffTable, parse_payoff_table
-from valuation.table_eval import TableValues, value_table
+from valuation.table_eval import TableValues, near_best, value_table
 from valuation.tree_eval import (
     clairvoyant_value,
     learning_value,
@@ -242,16 +237,14 @@ def _table_risk_profile(t: PayoffTable, tv: TableValues) -> dict:
 
 def _table_ties(t: PayoffTable, tv: TableValues) -> list[dict]:
     ties = []
+    # ``near_best`` is the rule that made the choice (``first_best``), so the names
+    # listed are the ones it weighed as tied.
     if tv.best_tie:
-        top = tv.criterion_by_alternative[tv.best]
-        tied = [t.alternatives[i] for i in range(len(t.alternatives))
-                if abs(tv.criterion_by_alternative[i] - top) <= TIE_TOLERANCE * max(1.0, abs(top))]
+        tied = [t.alternatives[i] for i in near_best(tv.criterion_by_alternative).tolist()]
         ties.append({"node": "decide", "branches": tied, "chosen": t.alternatives[tv.best]})
     if tv.option_tie:
         names = [NO_STUDY] + [s.name for s in t.studies]
-        top = tv.option_values[tv.chosen_option]
-        tied = [names[i] for i in range(len(names))
-                if abs(tv.option_values[i] - top) <= TIE_TOLERANCE * max(1.0, abs(top))]
+        tied = [names[i] for i in near_best(tv.option_values).tolist()]
         ties.append({"node": "study-choice", "branches": tied, "chosen": names[tv.chosen_option]})
     return ties
 
@@ -378,12 +371,9 @@ def _root_alternatives(tree: FlatTree, rb, r) -> list[dict]:
 
 def _tied_labels(tree: FlatTree, rb, node: int) -> list[str]:
     f, c = int(tree.first_branch[node]), int(tree.branch_count[node])
-    vals = np.array([tree.cash[b] + rb.value[tree.child[b]] for b in range(f, f + c)])
-    top = vals.max()
-    # The rollback's own rule (``TIE_TOLERANCE``), so the branches listed are the ones it
-    # weighed as tied.
-    return [tree.labels[f + j]
-            for j in np.flatnonzero(vals >= top - TIE_TOLERANCE * max(1.0, abs(top)))]
+    vals = [tree.cash[b] + rb.value[tree.child[b]] for b in range(f, f + c)]
+    # The rollback's own rule, so the branches listed are the ones it weighed as tied.
+    return [tree.labels[f + j] for j in near_best(vals).tolist()]
 
 
 def _learning_values(form: _TreeForm, rb, warnings: list[str]) -> list[dict]:

@@ -23,14 +23,20 @@ from valuation.bayes import Revision, revise
 from valuation.limits import TIE_TOLERANCE
 from valuation.table import PayoffTable
 
-__all__ = ["TableValues", "StudyValues", "value_table", "first_best"]
+__all__ = ["TableValues", "StudyValues", "value_table", "first_best", "near_best"]
+
+
+def near_best(values) -> np.ndarray:
+    """Indices of the values within the tie tolerance of the best (relative to it, at
+    least 1): the choices a decision weighs as tied, in order."""
+    values = np.asarray(values, dtype=float)
+    top = float(np.max(values))
+    return np.flatnonzero(values >= top - TIE_TOLERANCE * max(1.0, abs(top)))
 
 
 def first_best(values: np.ndarray) -> tuple[int, bool]:
     """Index of the best value, the first in order among near-equals; and whether there was a tie."""
-    top = float(np.max(values))
-    tol = TIE_TOLERANCE * max(1.0, abs(top))
-    near = np.flatnonzero(values >= top - tol)
+    near = near_best(values)
     return int(near[0]), bool(len(near) > 1)
 
 

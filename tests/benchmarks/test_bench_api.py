@@ -274,11 +274,7 @@ def _gunicorn(env: dict, log_path: Path, port: int):
          *lt.WORKER_TMP_DIR],
         cwd=ROOT, env=env, stdout=log, stderr=subprocess.STDOUT)
     try:
-        main_port, lt.PORT = lt.PORT, port  # the load script's helpers read its PORT
-        try:
-            lt._wait_until_up(proc)
-        finally:
-            lt.PORT = main_port
+        lt._wait_until_up(proc, port=port)
         yield _worker_pids(proc.pid)
     finally:
         proc.terminate()

@@ -133,8 +133,8 @@ def _counts() -> dict:
             "events": AuditEvent.objects.count()}
 
 
-def _request(method, path, token=None, body=None, headers=None, timeout=30):
-    conn = http.client.HTTPConnection(HOST, PORT, timeout=timeout)
+def _request(method, path, token=None, body=None, headers=None, timeout=30, port=None):
+    conn = http.client.HTTPConnection(HOST, port or PORT, timeout=timeout)
     h = {"Accept": "application/json", **(headers or {})}
     if token:
         h["Authorization"] = f"Token {token}"
@@ -315,7 +315,7 @@ def closed_loop(path: str, clients: int, seconds: float, max_requests: int = 200
             "statuses": {str(k): v for k, v in statuses.items()}}
 
 
-def _wait_until_up(proc, timeout=120.0):
+def _wait_until_up(proc, timeout=120.0, port=None):
     # Each worker imports the URL map (numpy, scipy, reportlab...) as it starts
     # (decisions/serving.py; on its first request with GC_FREEZE=false): several
     # seconds per worker on a small machine, so wait generously and warm every
@@ -325,10 +325,10 @@ def _wait_until_up(proc, timeout=120.0):
         if proc.poll() is not None:
             sys.exit(f"gunicorn exited with {proc.returncode}")
         try:
-            status, _, body = _request("GET", "/healthz", timeout=30)
+            status, _, body = _request("GET", "/healthz", timeout=30, port=port)
             if status == 200:
                 for _ in range(20):  # warm-up, excluded from the results
-                    _request("GET", "/api/schema/", timeout=60)
+                    _request("GET", "/api/schema/", timeout=60, port=port)
                 return
             last = f"{status} {body[:200]!r}"
         except OSError as exc:

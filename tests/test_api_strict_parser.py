@@ -132,3 +132,151 @@ def test_colons_counted_inside_strings_still_expose_a_duplicate():
 def test_colons_inside_strings_are_accepted_with_the_same_result():
     text = '{"title": "Phase 2: pilot", "when": "09:00", "a": {"b:c": [1, 2.5]}}'
     assert parse_strict_json(text.encode()) == json.loads(text)
+
+
+# -- the orjson reading (decisions/api/parsers.py ``_orjson_parse``) ------------------------
+#
+# The reference above compares with ``==``, for which 1 == 1.0 and 0.0 == -0.0; these
+# tests compare typed values, bit for bit, against Python's own ``json`` (the reference
+# reader of the standard library), so that the fast reading cannot change a value's
+# type or its last bit unnoticed.
+
+def _typed(value):
+    """``value`` as nested tuples that tell int from float and -0.0 from 0.0."""
+    if isinstance(value, dict):
+        return ("dict", tuple((key, _typed(sub)) for key, sub in value.items()))
+    if isinstance(value, list):
+        return ("list", tuple(_typed(sub) for sub in value))
+    if isinstance(value, float):
+        return ("float", value.hex())
+    return (type(value).__name__, value)
+
+
+def _typed_outcome(text: str):
+    try:
+        return ("accepted", _typed(parse_strict_json(text.encode())))
+    except BodyProblem as exc:
+        return ("refused", str(exc.detail))
+
+
+def _typed_reference(text: str):
+    try:
+        return ("accepted", _typed(_reference(text)))
+    except BodyProblem as exc:
+        return ("refused", str(exc.detail))
+
+
+@settings(max_examples=400, deadline=None)
+@given(text=bodies())
+def test_the_orjson_reading_keeps_every_type_and_bit(text):
+    assert _typed_outcome(text) == _typed_reference(text), text
+
+
+# Number literals as a client may write them: long mantissas, exponents both ways,
+# integers past 64 bits (which orjson would read as floats).
+DIGITS = st.text(alphabet="0123456789", min_size=1, max_size=40)
+LITERALS = st.one_of(
+    st.builds(lambda sign, whole, frac, exp: f"{sign}{whole.lstrip('0') or '0'}"
+              f"{'.' + frac if frac else ''}{exp}",
+              st.sampled_from(["", "-"]), DIGITS, st.one_of(st.just(""), DIGITS),
+              st.one_of(st.just(""), st.integers(-340, 340).map(lambda e: f"e{e}"),
+                        st.integers(0, 340).map(lambda e: f"E+{e}"))),
+    st.floats(allow_nan=False, allow_infinity=False).map(repr),
+    st.integers(-2**70, 2**70).map(str),
+    # Hard cases for correct rounding (halfway points, the smallest normals and
+    # subnormals), from the literature on decimal-to-binary conversion (common practice).
+    st.sampled_from(["2.2250738585072011e-308", "2.2250738585072012e-308",
+                     "4.9406564584124654e-324", "2.4703282292062328e-324",
+                     "9007199254740993", "9007199254740993.0", "1.7976931348623158e308",
+                     "0.1000000000000000055511151231257827", "18446744073709551616",
+                     "-9223372036854775809", "9223372036854775807", "18446744073709551615"]),
+)
+
+
+@settings(max_examples=1500, deadline=None)
+@given(literal=LITERALS)
+def test_numbers_read_as_the_standard_library_reads_them(literal):
+    text = f'{{"amount": {literal}, "list": [{literal}]}}'
+    assert _typed_outcome(text) == _typed_reference(text), text
+
+
+@pytest.mark.parametrize("literal", ["123456789012345678901234567890", "-9223372036854775809",
+                                     "18446744073709551616"])
+def test_integers_past_64_bits_stay_whole(literal):
+    # orjson reads these as floats; the body goes to the standard library's parse.
+    assert parse_strict_json(f'{{"n": {literal}}}'.encode()) == {"n": int(literal)}
+    assert type(parse_strict_json(f'[{literal}]'.encode())[0]) is int
+
+
+def _nested(levels: int, inner: str = "1") -> str:
+    return "[" * levels + inner + "]" * levels
+
+
+@pytest.mark.parametrize(("text", "accepted"), [
+    (_nested(MAX_DEPTH), True),
+    (_nested(MAX_DEPTH - 1, "[]"), True),
+    (_nested(MAX_DEPTH, "[]"), False),
+    (_nested(MAX_DEPTH, "{}"), False),
+    (_nested(MAX_DEPTH + 1), False),
+    ('{"a":' * (MAX_DEPTH - 1) + '{"b": 1}' + "}" * (MAX_DEPTH - 1), True),
+    ('{"a":' * MAX_DEPTH + '{"b": 1}' + "}" * MAX_DEPTH, False),
+    (_nested(300), False),  # past orjson's own writing limit (255 levels)
+    (_nested(2000), False),  # past its reading limit (1024 levels)
+])
+def test_depth_limit_at_its_edge(text, accepted):
+    outcome = _typed_outcome(text)
+    if len(text) < 1000:  # the reference's recursive depth count would overflow the stack
+        assert outcome == _typed_reference(text)
+    if accepted:
+        assert outcome[0] == "accepted"
+    else:
+        assert outcome == ("refused", f"must not nest deeper than {MAX_DEPTH} levels")
+
+
+@pytest.mark.parametrize("text", [
+    '{"a": 1, "a": 2}',
+    '{"n": "a:b", "n": "c"}',
+    '[{"x": {"k": 1, "k": 1}}]',
+    '{"t": "12\\u003a30", "a": 1, "a": 2}',
+    '{"note": "a + b", "a": 1, "a": 2}',
+])
+def test_duplicates_are_named_whichever_parse_reads_them(text):
+    assert _typed_outcome(text)[0] == "refused"
+    assert "duplicate key" in _typed_outcome(text)[1]
+    assert _typed_outcome(text) == _typed_reference(text)
+
+
+@pytest.mark.parametrize("text", ['{"a": "\\u0000"}', '{"\\u0000": 1}', '["ok", ["\\u0000"]]'])
+def test_nul_is_refused_after_the_orjson_reading(text):
+    outcome = _typed_outcome(text)
+    assert outcome[0] == "refused" and "U+0000" in outcome[1]
+
+
+@pytest.mark.parametrize("raw", [b'{"a": NaN}', b'{"a": Infinity}', b'\xef\xbb\xbf{}',
+                                 b'{"a": "\xff"}', b'{"a": "\\ud800"}', b'{"a": 1,}',
+                                 b'{"a": "\x01"}'])
+def test_what_orjson_refuses_is_decided_by_the_standard_library(raw):
+    from decisions.api.parsers import _UNSETTLED, _orjson_parse, _stdlib_parse
+
+    assert _orjson_parse(raw) is _UNSETTLED
+    try:
+        expected = ("accepted", _typed(_stdlib_parse(raw)))
+    except BodyProblem as exc:
+        expected = ("refused", str(exc.detail))
+    try:
+        got = ("accepted", _typed(parse_strict_json(raw)))
+    except BodyProblem as exc:
+        got = ("refused", str(exc.detail))
+    assert got == expected
+
+
+def test_an_ordinary_model_body_is_settled_by_the_orjson_reading():
+    # The point of the fast reading: a model as clients send it never needs the other
+    # parse. (Colons in names and a '+' would send it there, at a cost, not an error.)
+    from decisions.api.parsers import _UNSETTLED, _orjson_parse
+    from tests.benchmarks.bench_inputs import alternating_tree
+
+    raw = json.dumps({"document": alternating_tree(199, seed=7)}).encode()
+    data = _orjson_parse(raw)
+    assert data is not _UNSETTLED
+    assert _typed(data) == _typed(json.loads(raw))

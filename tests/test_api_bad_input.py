@@ -176,3 +176,20 @@ def test_a_risk_tolerance_that_is_not_positive_is_named_as_such(people, client_f
     assert response.json()["errors"] == [
         {"location": "risk_tolerance",
          "message": f"must be a positive finite number, got {float(tolerance)}"}]
+
+
+def test_a_model_whose_amounts_would_overflow_gets_400_at_its_largest_amount(people, client_for):
+    # Finite amounts whose sum is beyond a double (about 1.8e308, IEEE 754): the expected
+    # value was inf, which JSON cannot carry, and the answer a 500. The project rule
+    # (valuation.limits.AMOUNT_TOTAL_LIMIT, 1e300) refuses the model by name instead.
+    doc = {"kind": "tree", "title": "t", "root": "d", "nodes": [
+        {"id": "d", "kind": "decision", "branches": [
+            {"label": "a", "to": "e", "cash_flow": 1.5e308}, {"label": "b", "to": "f"}]},
+        {"id": "e", "kind": "end", "payoff": 1.5e308}, {"id": "f", "kind": "end", "payoff": 0}]}
+    response = client_for(people.ana).post("/api/evaluate/", {"document": doc}, format="json")
+    assert response.status_code == 400
+    assert response.json()["errors"] == [{
+        "location": "document.nodes[0].branches[0].cash_flow",
+        "message": "payoffs and cash flows (after discounting) must total less than 1e+300 in "
+                   "absolute value, so that no total or expected value overflows; they total "
+                   "more than a double holds (about 1.8e+308), and this amount is the largest"}]

@@ -84,3 +84,19 @@ def test_negative_risk_tolerance_exits_2():
     done = run("evaluate", str(FIXTURES / "heating_tree.json"), "--risk-tolerance", "-1")
     assert done.returncode == 2
     assert "risk_tolerance: must be a positive finite number" in done.stderr
+
+
+def test_a_model_whose_amounts_would_overflow_exits_2_and_prints_no_infinity():
+    # 1.5e308 + 1.5e308 is beyond a double (IEEE 754, about 1.8e308): the expected value
+    # was inf and --json failed with a traceback. The amounts' limit (project rule,
+    # valuation.limits.AMOUNT_TOTAL_LIMIT) refuses the model with its location instead.
+    doc = {"kind": "tree", "title": "t", "root": "d", "nodes": [
+        {"id": "d", "kind": "decision", "branches": [
+            {"label": "a", "to": "e", "cash_flow": 1.5e308}, {"label": "b", "to": "f"}]},
+        {"id": "e", "kind": "end", "payoff": 1.5e308}, {"id": "f", "kind": "end", "payoff": 0}]}
+    done = run("evaluate", "-", "--json", stdin=json.dumps(doc))
+    assert done.returncode == 2
+    assert done.stdout == ""
+    assert done.stderr.startswith("error: nodes[0].branches[0].cash_flow: payoffs and cash flows "
+                                  "(after discounting) must total less than 1e+300")
+    assert "Traceback" not in done.stderr and "Infinity" not in done.stderr

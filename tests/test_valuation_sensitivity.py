@@ -253,22 +253,23 @@ def test_a_distant_crossing_does_not_move_a_tie_rule_hand_over():
         assert be["value"] == pytest.approx(11 / 14, abs=1e-6), points
 
 
-def test_a_sweep_across_nearly_the_whole_range_of_a_double_finds_its_break_even():
-    # B is worth (x - 1e306) / 2 against A's 0: they cross at x = 1e306 exactly, inside a
-    # sweep whose width (2.5e308) a double cannot hold. Worked by hand.
+def test_a_sweep_across_nearly_the_whole_allowed_range_finds_its_break_even():
+    # B is worth (x - 1e298) / 2 against A's 0: they cross at x = 1e298 exactly, inside a
+    # sweep from -9.8e299 to 9.8e299, where the amounts total up to 9.9e299, just within
+    # AMOUNT_TOTAL_LIMIT (1e300). Worked by hand.
     doc = table([("s1", 0.5), ("s2", 0.5)],
-                [("A", {"s1": 0.0, "s2": 0.0}), ("B", {"s1": 1e306, "s2": -1e306})])
-    [be] = one_way(doc, "alternatives[1].payoffs.s1", [-1e308, 1.5e308])["break_even"]
+                [("A", {"s1": 0.0, "s2": 0.0}), ("B", {"s1": 1e298, "s2": -1e298})])
+    [be] = one_way(doc, "alternatives[1].payoffs.s1", [-9.8e299, 9.8e299])["break_even"]
     assert be["tie_rule"] is False
-    assert be["value"] == pytest.approx(1e306, rel=1e-12)
+    assert be["value"] == pytest.approx(1e298, rel=1e-12)
 
 
-def test_a_default_range_wider_than_a_double_is_refused_by_name():
+def test_a_range_wider_than_a_double_is_refused_by_name():
     doc = table([("s1", 0.5), ("s2", 0.5)],
-                [("A", {"s1": 0.0, "s2": 0.0}), ("B", {"s1": 0.0, "s2": 1e308})])
+                [("A", {"s1": 0.0, "s2": 0.0}), ("B", {"s1": 0.0, "s2": 1e299})])
     with pytest.raises(ParameterError, match=r"^alternatives\[1\]\.payoffs\.s1: the range from "
                                              r"-1e\+308 to 1e\+308 is wider than a double"):
-        one_way(doc, "alternatives[1].payoffs.s1")
+        one_way(doc, "alternatives[1].payoffs.s1", low=-1e308, high=1e308)
 
 
 def test_a_tornado_over_no_inputs_has_no_rows():

@@ -10,9 +10,9 @@ import math
 from typing import Any
 
 from valuation.errors import ModelValidationError, Problem
-from valuation.limits import MAX_NAME_LENGTH, MAX_PROBLEMS_REPORTED
+from valuation.limits import AMOUNT_TOTAL_LIMIT, MAX_NAME_LENGTH, MAX_PROBLEMS_REPORTED
 
-__all__ = ["Problems", "is_number", "describe"]
+__all__ = ["Problems", "is_number", "describe", "amount_total_message", "total_text"]
 
 
 def is_number(value: Any) -> bool:
@@ -24,6 +24,21 @@ def describe(value: Any) -> str:
     """Short rendering of an offending value for a message."""
     text = repr(value)
     return text if len(text) <= 60 else text[:57] + "..."
+
+
+def total_text(total: float) -> str:
+    """A total of amounts for a message; one beyond a double's range was added up as inf."""
+    return f"{total:.4g}" if math.isfinite(total) else "more than a double holds (about 1.8e+308)"
+
+
+def amount_total_message(amounts: str, total: float) -> str:
+    """The message of the ``AMOUNT_TOTAL_LIMIT`` rule, given at the largest amount.
+
+    Trees and payoff tables word it alike; ``amounts`` says what is added up.
+    """
+    return (f"{amounts} must total less than {AMOUNT_TOTAL_LIMIT:g} in absolute value, so that no "
+            f"total or expected value overflows; they total {total_text(total)}, and this amount "
+            "is the largest")
 
 
 class Problems:

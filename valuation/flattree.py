@@ -25,8 +25,9 @@ from typing import Any
 
 import numpy as np
 
-from valuation.checks import Problems, describe
+from valuation.checks import Problems, amount_total_message, describe
 from valuation.limits import (
+    AMOUNT_TOTAL_LIMIT,
     MAX_NAME_LENGTH,
     MAX_TIME_YEARS,
     MAX_TREE_DEPTH,
@@ -36,7 +37,8 @@ from valuation.limits import (
 )
 from valuation.table import COMMON_FIELDS, check_common
 
-__all__ = ["FlatTree", "Rollback", "build_tree", "rollback", "reach_probabilities", "spans"]
+__all__ = ["FlatTree", "Rollback", "build_tree", "rollback", "reach_probabilities", "spans",
+           "amount_total"]
 
 END, CHANCE, DECISION = 0, 1, 2
 #: Trees of at most this many nodes are walked level by level with Python lists rather
@@ -206,7 +208,9 @@ def _finish(common, ids, names, kind, payoff, root, parent, child, prob, cash, l
     """Depths, branch order and level slices, shared by both readers."""
     n = len(ids)
     depth = _depths(n, root, parent, child, first, count, ids, problems)
-    if depth is None:
+    # Branches are still in document order here (node by node), as the location needs.
+    amounts_ok = _amounts_within_limit(payoff, cash, parent, first, problems)
+    if depth is None or not amounts_ok:
         return None
     # Order branches by the depth of their parent, chance parents before decision
     # parents within a depth; a stable sort keeps each parent's branches together and
@@ -230,6 +234,43 @@ def _finish(common, ids, names, kind, payoff, root, parent, child, prob, cash, l
     # tree evaluated with Python lists (``valuation.small_tree``) never needs it.
     return FlatTree(*common, ids, names, kind, payoff, depth, root,
                     parent, child, prob, cash, labels, slices, first, count)
+
+
+def amount_total(payoff: np.ndarray, cash: np.ndarray) -> float:
+    """Total of the absolute discounted amounts, the measure of ``AMOUNT_TOTAL_LIMIT`` (inf
+    when beyond a double's range)."""
+    with np.errstate(over="ignore"):
+        return float(np.abs(payoff).sum() + np.abs(cash).sum())
+
+
+def _amounts_within_limit(payoff, cash, parent, first, problems) -> bool:
+    """The ``AMOUNT_TOTAL_LIMIT`` rule: discounted payoffs and cash flows total less than it
+    in absolute value, so that no rollback, risk profile or EVPI overflows.
+
+    Two reductions on the hot path; a total beyond a double is inf, which fails the
+    comparison as well (summed with the overflow warning off). The largest amount, where
+    the problem is reported, is only looked for once the rule is broken.
+    """
+    total = amount_total(payoff, cash)
+    if total < AMOUNT_TOTAL_LIMIT:
+        return True
+    problems.add(_largest_amount(payoff, cash, parent, first),
+                 amount_total_message("payoffs and cash flows (after discounting)", total))
+    return False
+
+
+def _largest_amount(payoff, cash, parent, first) -> str:
+    """Location of the largest amount in absolute value (of equals, the one in the first node).
+
+    ``cash`` must be in document order (node by node), as both readers hand it to ``_finish``.
+    """
+    i = int(np.argmax(np.abs(payoff)))
+    if len(cash):
+        b = int(np.argmax(np.abs(cash)))
+        node = int(parent[b])
+        if abs(cash[b]) > abs(payoff[i]) or (abs(cash[b]) == abs(payoff[i]) and node < i):
+            return f"nodes[{node}].branches[{b - int(first[node])}].cash_flow"
+    return f"nodes[{i}].payoff"
 
 
 # -- the fast reader -----------------------------------------------------------------------

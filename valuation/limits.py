@@ -21,6 +21,7 @@ __all__ = [
     "DETAIL_NODE_LIMIT",
     "EXPAND_NODE_LIMIT",
     "INFORMATION_NODE_LIMIT",
+    "AMOUNT_TOTAL_LIMIT",
 ]
 
 #: Probabilities of one chance node, or one likelihood row, must sum to 1 within this.
@@ -49,3 +50,14 @@ DETAIL_NODE_LIMIT = 20_000
 EXPAND_NODE_LIMIT = 200_000
 #: Value of learning each chance node, and EVPI of a general tree, up to this tree size.
 INFORMATION_NODE_LIMIT = 5_000
+#: The amounts of a model (a tree's payoffs and cash flows after discounting; a payoff
+#: table's study costs and its payoffs, counted as often as its equivalent tree holds them)
+#: must total less than this in absolute value. The total bounds every path total and
+#: expected value, a certainty equivalent (it lies between the worst outcome and the
+#: expected value) and the difference of two of them (EVPI, EVSI, a swing), so none of them
+#: overflows a double (IEEE 754: largest finite value about 1.8e308, Python's
+#: ``sys.float_info.max``) and every number of a result document is finite, as JSON (the
+#: API, ``--json``) requires. The margin of over 1e8 leaves room for rounding, for
+#: probabilities that sum to 1 only within PROBABILITY_SUM_TOLERANCE, and for a risk
+#: tolerance times a logarithm. Sensitivity sweeps are held to the same total.
+AMOUNT_TOTAL_LIMIT = 1e300

@@ -35,9 +35,10 @@ from valuation.batch import (
     plan_value,
     row_cells,
 )
+from valuation.checks import total_text
 from valuation.errors import ParameterError
-from valuation.flattree import DECISION, FlatTree
-from valuation.limits import TIE_TOLERANCE
+from valuation.flattree import DECISION, FlatTree, amount_total
+from valuation.limits import AMOUNT_TOTAL_LIMIT, TIE_TOLERANCE
 from valuation.parameters import (
     MONEY_KINDS,
     PROBABILITY_KINDS,
@@ -47,7 +48,8 @@ from valuation.parameters import (
     find_parameter,
     parameter_specs,
 )
-from valuation.table import PayoffTable
+from valuation.table import PayoffTable, payoff_copies
+from valuation.table import amount_total as table_amount_total
 from valuation.utility import check_risk_tolerance
 
 __all__ = ["one_way", "tornado", "two_way", "sweep_points", "default_range", "BREAK_EVEN_RTOL",
@@ -130,6 +132,43 @@ def _grid(model, specs: list[Parameter], spec: Parameter, points, low, high) -> 
         raise ParameterError(f"{spec.name}: the range from {lo:g} to {hi:g} is wider than a "
                              f"double can hold (about 1.8e308); give a narrower low and high")
     return np.linspace(lo, hi, points)
+
+
+def _check_amount_limit(model: PayoffTable | FlatTree, moves: list[tuple[Parameter, np.ndarray]]) -> None:
+    """Refuse input values that would take the model past ``AMOUNT_TOTAL_LIMIT``.
+
+    A document is read only when its amounts total less than the limit, which keeps
+    every value computed from them finite; a sweep puts other values in their place,
+    so it is held to the same rule: each moved amount at its value farthest from zero
+    replaces its base, counted as the model's reader counts it (discounted in a tree;
+    a table's payoff as often as the equivalent tree repeats it).
+    """
+    money = [(spec, values) for spec, values in moves if spec.kind in MONEY_KINDS and len(values)]
+    if not money:
+        return
+    if isinstance(model, PayoffTable):
+        total = table_amount_total(model.payoffs, model.studies)
+        copies = payoff_copies(model.studies)
+    else:
+        total = amount_total(model.payoff, model.cash)
+        copies = 1
+    for spec, values in money:
+        weight = copies if spec.kind == "payoff" and isinstance(model, PayoffTable) else 1
+        divisor = spec.divisor or 1.0
+        peak = float(np.max(np.abs(values)))
+        total += weight * (peak / divisor - abs(spec.base) / divisor)  # Python floats: inf, no error
+    if total < AMOUNT_TOTAL_LIMIT:
+        return
+    spans = [f"from {float(np.min(v)):g} to {float(np.max(v)):g}" for _, v in money]
+    if len(money) == 1:
+        what = f"{money[0][0].name}: values {spans[0]}"
+    else:
+        what = (", ".join(spec.name for spec, _ in money) + ": values "
+                + " and ".join(spans) + " respectively")
+    raise ParameterError(
+        f"{what} would bring the model's amounts to a total of {total_text(total)} in absolute "
+        f"value; they must total less than {AMOUNT_TOTAL_LIMIT:g} so that no total or expected "
+        "value overflows; give a narrower range")
 
 
 def sweep_points(doc: Any, parameter: str, *, points: int = 41, low: float | None = None,
@@ -407,6 +446,7 @@ def one_way(doc: Any, parameter: str, values=None, *, points: int = 41, low: flo
         xs = np.unique(check_values(spec, values))
         if not 1 <= len(xs) <= MAX_POINTS:
             raise ParameterError(f"{spec.name}: give between 1 and {MAX_POINTS} values, got {len(xs)}")
+    _check_amount_limit(model, [(spec, xs)])
     bv = _run(model, spec, xs, r)
     labels, index = _labels(model, bv.plan)
     out = {
@@ -505,6 +545,7 @@ def tornado(doc: Any, *, swing: float = 0.2, probability_step: float = 0.1,
             low, high = (float(v) for v in check_values(spec, pair))
         else:
             low, high = default_range(spec, scale, swing=swing, probability_step=probability_step)
+        _check_amount_limit(model, [(spec, np.array([low, high]))])
         lows.append(low)
         highs.append(high)
     n = len(chosen)
@@ -576,6 +617,7 @@ def two_way(doc: Any, param_x: str, values_x, param_y: str, values_y, *,
     if not len(xs) or not len(ys) or len(xs) * len(ys) > MAX_GRID_POINTS:
         raise ParameterError(f"two-way grid: needs between 1 and {MAX_GRID_POINTS:,} points, got "
                              f"{len(xs)} x {len(ys)}")
+    _check_amount_limit(model, [(sx, xs), (sy, ys)])
     nx, ny = len(xs), len(ys)
     rows = np.arange(nx * ny)
     bv = evaluate_batch(model, [(sx, rows, np.tile(xs, ny)), (sy, rows, np.repeat(ys, nx))],

@@ -24,8 +24,9 @@ order of operations decides a result, it is restated here:
   branches is left to the array code.
 - ``np.exp`` and ``np.log`` are not the C library's (they differ in the last bit now
   and then), so they are still called, on a whole level at a time.
-- Amounts are bounded (``_AMOUNT_BOUND``) so that no value overflows: infinities and
-  NaN, where numpy and Python order comparisons differently, cannot arise.
+- Amounts are bounded (``AMOUNT_TOTAL_LIMIT``, which ``flattree`` already holds every
+  document to) so that no value overflows: infinities and NaN, where numpy and Python
+  order comparisons differently, cannot arise.
 
 ``tests/test_valuation_small_paths.py`` holds each routine equal to its array twin on
 generated trees, and ``valuation.evaluate`` on both paths to the same document.
@@ -41,7 +42,7 @@ from operator import itemgetter
 import numpy as np
 
 from valuation.flattree import CHANCE, DECISION, END, FlatTree, _cash_is_identity
-from valuation.limits import INFORMATION_NODE_LIMIT, TIE_TOLERANCE
+from valuation.limits import AMOUNT_TOTAL_LIMIT, INFORMATION_NODE_LIMIT, TIE_TOLERANCE
 from valuation.tree_eval import profile_from_outcomes
 from valuation.utility import certainty_equivalent
 
@@ -61,8 +62,6 @@ LIST_CLAIRVOYANT_NODES = 400
 LIST_CLAIRVOYANT_NODES_PER_LEVEL = 100
 #: Longest run numpy reduces strictly left to right (see the module docstring).
 MAX_LIST_WIDTH = 8
-#: Largest total of absolute amounts, and largest risk tolerance, evaluated here.
-_AMOUNT_BOUND = 1e300
 
 _INF = math.inf
 _value_of = itemgetter(0)
@@ -112,13 +111,16 @@ def as_lists(tree: FlatTree, risk_tolerance: float | None) -> ListTree | None:
     """The tree as lists when this module evaluates it (see the module docstring), else None."""
     if tree.size > LIST_PATH_NODES:
         return None
-    if risk_tolerance is not None and not risk_tolerance < _AMOUNT_BOUND:
+    # A risk tolerance as large as the amounts' limit stays on the arrays.
+    if risk_tolerance is not None and not risk_tolerance < AMOUNT_TOTAL_LIMIT:
         return None
     count = tree.branch_count.tolist()
     if max(count) > MAX_LIST_WIDTH:
         return None
     payoff, cash = tree.payoff.tolist(), tree.cash.tolist()
-    if not sum(map(abs, payoff)) + sum(map(abs, cash)) < _AMOUNT_BOUND:
+    # A tree read from a document is within the limit (``flattree._finish``); this guards
+    # one whose arrays were set otherwise.
+    if not sum(map(abs, payoff)) + sum(map(abs, cash)) < AMOUNT_TOTAL_LIMIT:
         return None
     kind, depth = tree.kind.tolist(), tree.depth.tolist()
     parent, child = tree.parent.tolist(), tree.child.tolist()

@@ -15,8 +15,9 @@ from typing import Any
 
 import numpy as np
 
-from valuation.checks import Problems, describe, is_number
+from valuation.checks import Problems, amount_total_message, describe, is_number
 from valuation.limits import (
+    AMOUNT_TOTAL_LIMIT,
     MAX_ALTERNATIVES,
     MAX_SIGNALS,
     MAX_STATES,
@@ -25,7 +26,8 @@ from valuation.limits import (
     PROBABILITY_SUM_TOLERANCE,
 )
 
-__all__ = ["Study", "PayoffTable", "parse_payoff_table", "COMMON_FIELDS"]
+__all__ = ["Study", "PayoffTable", "parse_payoff_table", "COMMON_FIELDS", "amount_total",
+           "payoff_copies"]
 
 COMMON_FIELDS = frozenset(
     {"kind", "title", "currency", "objective", "discount_rate", "description", "notes", "metadata"}
@@ -342,9 +344,49 @@ def parse_payoff_table(doc: dict, problems: Problems) -> PayoffTable | None:
     if rate is not None:
         # A payoff table has no dates: a discount rate would change nothing, so say so.
         problems.add("discount_rate", "a payoff table has no dated cash flows; use a tree")
+    _check_amount_total(payoffs, states, studies, problems)
+    if problems:
         return None
     return PayoffTable(title, currency, objective, rate, states, prior, alternatives,
                        payoffs, studies)
+
+
+def payoff_copies(studies: list[Study]) -> int:
+    """How many times the equivalent tree holds each payoff: once without a study, and once
+    under every signal of every study (see ``expand_table``)."""
+    return 1 + sum(len(study.signals) for study in studies)
+
+
+def amount_total(payoffs: np.ndarray, studies: list[Study]) -> float:
+    """Total of the absolute amounts as the equivalent tree holds them (the limit's measure)."""
+    with np.errstate(over="ignore"):
+        payoff_total = float(np.abs(payoffs).sum())
+    # Python floats: a product or sum beyond a double is inf, not an error.
+    return payoff_total * payoff_copies(studies) + sum(study.cost for study in studies)
+
+
+def _check_amount_total(payoffs: np.ndarray, states: list[str], studies: list[Study],
+                        problems: Problems) -> None:
+    """The ``AMOUNT_TOTAL_LIMIT`` rule, with the amounts counted as the equivalent tree has them.
+
+    ``expand_table`` repeats every payoff once without a study and once under each signal
+    of each study, and puts each study's cost on one branch. Adding them up the same way
+    means a valid table expands into a tree the tree reader accepts (node details, value
+    of learning, drawings), and bounds everything computed on the matrices as well.
+    Called on a table without other problems, so ``studies`` holds every study in order.
+    """
+    total = amount_total(payoffs, studies)
+    if total < AMOUNT_TOTAL_LIMIT:
+        return
+    copies = payoff_copies(studies)
+    costs = [study.cost for study in studies]
+    i, j = np.unravel_index(int(np.argmax(np.abs(payoffs))), payoffs.shape)
+    where = f"alternatives[{i}].payoffs.{states[j]}"
+    if costs and max(costs) > abs(float(payoffs[i, j])) * copies:
+        where = f"studies[{costs.index(max(costs))}].cost"
+    problems.add(where, amount_total_message(
+        "payoffs (each counted once, and once more under every signal of every study, as in "
+        "the equivalent tree) and study costs", total))
 
 
 def table_from_arrays(**kwargs: Any) -> PayoffTable:

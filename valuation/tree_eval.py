@@ -11,6 +11,8 @@ of their distribution functions.
 
 from __future__ import annotations
 
+import sys
+
 import numpy as np
 
 from valuation.flattree import (
@@ -127,7 +129,7 @@ def profile_from_outcomes(values, probs, objective: str, max_points: int = 5000)
     """Aggregate equal outcomes, sort ascending, and summarise."""
     values = np.asarray(values, dtype=float)
     probs = np.asarray(probs, dtype=float)
-    uniq, inverse = np.unique(np.round(values, 9), return_inverse=True)
+    uniq, inverse = np.unique(_rounded(values), return_inverse=True)
     mass = np.bincount(inverse, weights=probs, minlength=len(uniq))
     note = None
     if len(uniq) > max_points:
@@ -150,6 +152,20 @@ def profile_from_outcomes(values, probs, objective: str, max_points: int = 5000)
         out["note"] = note
     return out
 
+
+
+#: ``np.round(x, 9)`` multiplies by 1e9 first, so it overflows from about 1.8e299 on; a
+#: double that large is a whole number anyway (every one beyond 2**52 is).
+_ROUNDABLE = sys.float_info.max / 1e10
+
+
+def _rounded(values: np.ndarray) -> np.ndarray:
+    """Outcomes to 9 decimals, so that path totals a rounding step apart count as one;
+    beyond ``_ROUNDABLE`` (within the amounts' limit) they are kept as they are."""
+    if not len(values) or float(np.abs(values).max()) < _ROUNDABLE:
+        return np.round(values, 9)
+    small = np.abs(values) < _ROUNDABLE
+    return np.where(small, np.round(np.where(small, values, 0.0), 9), values)
 
 
 def _merge_groups(uniq: np.ndarray, mass: np.ndarray, groups: int) -> tuple[np.ndarray, np.ndarray]:

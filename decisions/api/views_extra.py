@@ -12,11 +12,13 @@ from drf_spectacular.utils import extend_schema
 from rest_framework import mixins, viewsets
 from rest_framework.decorators import action
 from rest_framework.permissions import IsAdminUser, IsAuthenticated
+from rest_framework.renderers import BrowsableAPIRenderer
 from rest_framework.response import Response
 from rest_framework.throttling import ScopedRateThrottle
 from rest_framework.views import APIView
 
 from decisions.api import serializers as s
+from decisions.api.renderers import CoreResultRenderer
 from decisions.models import Team
 from decisions.services import teams
 from decisions.services.access import visible_teams
@@ -99,6 +101,8 @@ class EvaluateView(APIView):
 
     throttle_scope = "evaluate"
     throttle_classes = (ScopedRateThrottle,)
+    # The core's result document, whose numbers the core keeps finite (decisions/api/renderers.py).
+    renderer_classes = (CoreResultRenderer, BrowsableAPIRenderer)
 
     @extend_schema(request=s.EvaluateSerializer, responses=OpenApiTypes.OBJECT)
     def post(self, request):

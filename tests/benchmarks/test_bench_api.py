@@ -221,7 +221,9 @@ def _report(body, one, cpu, floor_cpu, growth, rounds, floor_wrk, threads, threa
     lines = [
         f"gunicorn {WORKERS} sync workers (start-up objects frozen out of garbage collection, "
         f"the default: decisions/serving.py; heartbeat file in {_heartbeat_folder()}, as in the "
-        f"README's deployment command), DEBUG off, throttles lifted (per second), throwaway "
+        f"README's deployment command; bodies read and result documents written with orjson: "
+        f"decisions/api/parsers.py, renderers.py), DEBUG off, throttles lifted (per second), "
+        f"throwaway "
         f"SQLite file; tree of 199 nodes ({len(body) / 1024:.0f} KiB of JSON, encoded once); "
         f"{CLIENTS} clients in a closed loop, a new connection per request, 127.0.0.1 only: "
         f"wrk (2 threads, {ROUNDS} rounds of {ROUND_SECONDS:.0f} s, in turn with a second "

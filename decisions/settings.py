@@ -19,6 +19,9 @@ Variables (all optional unless stated):
 - ``API_TOKEN_RATE`` / ``API_EVALUATE_RATE``: DRF throttle rates for ``/api/token/``
   and ``/api/evaluate/`` (default ``20/min`` and ``120/min``; fairness, not security).
 - ``API_MEMO_RATE``: memo PDFs per user (default ``30/min``; each costs about 0.5 s of CPU).
+- ``IDEMPOTENCY_KEY_TTL_HOURS``: how long an ``Idempotency-Key`` of ``POST /api/decisions/``
+  is remembered (default 24, at least 1); older keys are ignored, and purged by
+  ``manage.py purge_idempotency_keys``.
 """
 
 from __future__ import annotations
@@ -203,6 +206,10 @@ else:
     raise ImproperlyConfigured(f"CACHE_URL: must be locmem:// or db://TABLE, got {_CACHE_URL!r}")
 LOGIN_FAILURE_LIMIT = env_int("LOGIN_FAILURE_LIMIT", 5, minimum=1)
 LOGIN_LOCKOUT_SECONDS = env_int("LOGIN_LOCKOUT_SECONDS", 900, minimum=1)
+
+# A retry with the same Idempotency-Key within this many hours replays the first answer
+# (decisions/services/idempotency.py); the expiry policy the IETF draft asks servers to publish.
+IDEMPOTENCY_KEY_TTL_HOURS = env_int("IDEMPOTENCY_KEY_TTL_HOURS", 24, minimum=1)
 
 LOGGING = {
     "version": 1,

@@ -2,7 +2,8 @@
 
 Every change to a decision needs ``If-Match`` with the ETag of the decision
 (428 without it, 412 when stale); every response about a decision carries its
-current ``ETag``.
+current ``ETag``. Creating a decision takes an optional ``Idempotency-Key`` that
+makes it safe to retry (``decisions.services.idempotency``).
 """
 
 from __future__ import annotations
@@ -22,12 +23,28 @@ from decisions.api import serializers as s
 from decisions.api.permissions import TeamRolePermission
 from decisions.models import AuditEvent, ChosenStrategy, Decision, ModelVersion, SignOff
 from decisions.services import decisions as svc
+from decisions.services import idempotency
 from decisions.services import signoff as signing
 from decisions.services.access import visible_decisions
 from valuation.diff import diff_documents
 
 IF_MATCH = OpenApiParameter("If-Match", OpenApiTypes.STR, OpenApiParameter.HEADER, required=True,
                             description="the decision's ETag as last read")
+# The IETF draft "The Idempotency-Key HTTP Header Field"
+# (draft-ietf-httpapi-idempotency-key-header); decisions/services/idempotency.py follows it.
+IDEMPOTENCY_KEY = OpenApiParameter(
+    idempotency.KEY_HEADER, OpenApiTypes.STR, OpenApiParameter.HEADER, required=False,
+    description=(
+        "Optional; makes the request safe to retry. A key of 1 to 255 printable ASCII "
+        "characters, new for each new request (a random UUID), sent as a quoted string "
+        "(`\"8e03978e-40d5-43e8-bc93-6894a57f9324\"`) or bare. Resending the same body with the "
+        "same key within IDEMPOTENCY_KEY_TTL_HOURS (default 24 hours) creates nothing and "
+        "answers 201 with the decision the key created, as it is now, and the header "
+        "`Idempotent-Replayed: true`. The same key with another body: 422; while the first "
+        "request with the key is still being processed: 409; a malformed key: 400. A "
+        "refused request records nothing. Keys belong to the user who sent them."))
+#: Response header marking an answer to a retry (the draft names none; ours, documented).
+REPLAYED_HEADER = "Idempotent-Replayed"
 
 
 def _decision_response(decision: Decision, code=status.HTTP_200_OK, data=None) -> Response:
@@ -101,12 +118,22 @@ class DecisionViewSet(mixins.ListModelMixin, mixins.RetrieveModelMixin, viewsets
     def retrieve(self, request, *args, **kwargs):
         return _decision_response(self.get_object())
 
-    @extend_schema(request=s.DecisionCreateSerializer, responses={201: s.DecisionSerializer})
+    @extend_schema(request=s.DecisionCreateSerializer, responses={201: s.DecisionSerializer},
+                   parameters=[IDEMPOTENCY_KEY, OpenApiParameter(
+                       REPLAYED_HEADER, OpenApiTypes.STR, OpenApiParameter.HEADER, enum=["true"],
+                       response=[201], description="present on the answer to a retry with an "
+                       "Idempotency-Key: nothing was created this time")])
     def create(self, request):
+        """A new draft decision; send ``Idempotency-Key`` to make the request safe to retry."""
+        key = idempotency.parse_key(request.headers.get(idempotency.KEY_HEADER))
         data = _valid(s.DecisionCreateSerializer, request)
-        decision = svc.create_decision(actor=request.user, team=data["team"], title=data["title"],
-                                       policy=data.get("policy"))
-        return _decision_response(decision, status.HTTP_201_CREATED)
+        created = idempotency.create_decision_once(
+            actor=request.user, key=key, body=request.data, team=data["team"],
+            title=data["title"], policy=data.get("policy"))
+        response = _decision_response(created.decision, status.HTTP_201_CREATED)
+        if created.replayed:
+            response[REPLAYED_HEADER] = "true"
+        return response
 
     @extend_schema(request=s.DecisionUpdateSerializer, parameters=[IF_MATCH])
     def partial_update(self, request, pk=None):

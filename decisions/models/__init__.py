@@ -3,10 +3,11 @@
 Split by concern: teams and roles, the decision register itself (decisions,
 immutable model versions, sign-off policies, sign-offs, chosen strategies) and
 the audit chain. Outcomes and study sources live in their own module, added
-later beside these.
+later beside these, and so do the idempotency keys of decision creation.
 """
 
 from decisions.models.audit import GENESIS_HASH, AuditEvent, ChainHead
+from decisions.models.idempotency import IdempotencyKey
 from decisions.models.register import (
     ChosenStrategy,
     Decision,
@@ -33,6 +34,7 @@ __all__ = [
     "ChainHead",
     "ChosenStrategy",
     "Decision",
+    "IdempotencyKey",
     "Meaning",
     "Membership",
     "ModelVersion",

@@ -13,6 +13,8 @@ __all__ = [
     "ConflictError",
     "DomainError",
     "ForbiddenError",
+    "IdempotencyKeyInProgress",
+    "IdempotencyKeyReused",
     "InvalidInput",
     "NotFoundError",
     "PreconditionFailed",
@@ -81,3 +83,19 @@ class PreconditionRequired(DomainError):
 
     status = 428
     code = "precondition_required"
+
+
+class IdempotencyKeyReused(DomainError):
+    """An ``Idempotency-Key`` came back with a different request body (422).
+
+    Status from the IETF draft "The Idempotency-Key HTTP Header Field", §2.7.
+    """
+
+    status = 422
+    code = "idempotency_key_reused"
+
+
+class IdempotencyKeyInProgress(ConflictError):
+    """Another request with the same ``Idempotency-Key`` is being processed (409, draft §2.7)."""
+
+    code = "idempotency_key_in_progress"

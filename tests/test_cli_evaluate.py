@@ -100,3 +100,32 @@ def test_a_model_whose_amounts_would_overflow_exits_2_and_prints_no_infinity():
     assert done.stderr.startswith("error: nodes[0].branches[0].cash_flow: payoffs and cash flows "
                                   "(after discounting) must total less than 1e+300")
     assert "Traceback" not in done.stderr and "Infinity" not in done.stderr
+
+
+def test_a_huge_risk_tolerance_recommends_what_the_expected_value_does():
+    # Common practice (Howard 1988): exponential utility tends to the expected value as the
+    # risk tolerance grows, so at R = 1e25 on the invented demo tree (amounts of about
+    # 1e6) the plan is the risk-neutral one and its CE is its expected value.
+    tree = str(FIXTURES / "heating_tree.json")
+    neutral = run("evaluate", tree, "--json")
+    averse = run("evaluate", tree, "--json", "--risk-tolerance", "1e25")
+    assert neutral.returncode == 0, neutral.stderr
+    assert averse.returncode == 0, averse.stderr
+    assert "RuntimeWarning" not in averse.stderr
+    expected, result = json.loads(neutral.stdout), json.loads(averse.stdout)
+    assert result["policy"] == expected["policy"]
+    assert result["without_information"]["best_alternative"] == \
+        expected["without_information"]["best_alternative"]
+    assert result["certainty_equivalent"] == pytest.approx(expected["expected_value"], rel=1e-9)
+    assert result["evpi"] == pytest.approx(expected["evpi"], rel=1e-9)
+
+
+def test_a_tiny_risk_tolerance_prints_no_numpy_warning():
+    # An exponent overflowing to -inf is expected and handled (its exp is 0): no warning.
+    for model in ("heating_tree.json", "heating_payoff_table.json"):
+        done = run("evaluate", str(FIXTURES / model), "--json", "--risk-tolerance", "1e-320")
+        assert done.returncode == 0, done.stderr
+        assert "RuntimeWarning" not in done.stderr
+        # The most risk-averse choice: the alternative with the best worst outcome.
+        assert json.loads(done.stdout)["without_information"]["best_alternative"] == \
+            "Shallow ground loop"

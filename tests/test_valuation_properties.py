@@ -19,6 +19,7 @@ from hypothesis import strategies as st
 import valuation
 from tests.strategies import payoff_tables, trees
 from valuation.limits import TIE_TOLERANCE
+from valuation.utility import certainty_equivalent
 
 SETTINGS = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
@@ -337,3 +338,30 @@ def test_tree_evpi_on_deeper_trees_equals_enumeration(doc):
     result = valuation.evaluate(doc)
     expected = brute_force_clairvoyant_value(doc) - brute_force_value(doc)
     assert result["evpi"] == pytest.approx(float(expected), abs=1e-9)
+
+
+lotteries = st.integers(1, 8).flatmap(lambda n: st.tuples(
+    st.lists(st.floats(-1e9, 1e9, allow_subnormal=False), min_size=n, max_size=n),
+    st.lists(st.integers(0, 100), min_size=n, max_size=n).filter(any)))
+risk_tolerances = st.floats(-3, 308).map(lambda e: 10.0 ** e)
+
+
+@settings(max_examples=300, deadline=None)
+@given(lotteries, risk_tolerances, risk_tolerances)
+def test_certainty_equivalent_is_between_worst_and_expected_and_grows_with_tolerance(
+        lottery, r1, r2):
+    # Common practice (Pratt 1964; Howard 1988): under exponential utility a risk averter's
+    # CE lies between the worst outcome and the expected value, and falls as the risk
+    # tolerance R falls; it tends to the expected value as R grows. "Within rounding":
+    # 1e-12 of the largest outcome.
+    values, weights = lottery
+    probs = [w / sum(weights) for w in weights]
+    worst = min(v for v, p in zip(values, probs, strict=True) if p > 0)
+    expected = sum(p * v for v, p in zip(values, probs, strict=True)) / sum(probs)
+    slack = 1e-12 * max(abs(v) for v in values)
+    low, high = sorted((r1, r2))
+    ce_low = certainty_equivalent(values, probs, low)
+    ce_high = certainty_equivalent(values, probs, high)
+    for ce in (ce_low, ce_high):
+        assert worst - slack <= ce <= expected + slack
+    assert ce_low <= ce_high + slack

@@ -5,6 +5,8 @@ published inputs rather than printed in the source; "memory" marks a source
 recalled rather than re-read.
 """
 
+import math
+from decimal import Decimal, localcontext
 from fractions import Fraction
 
 import pytest
@@ -196,3 +198,75 @@ def test_evpi_equals_expected_opportunity_loss_of_the_best_alternative():
         pay = {a["name"]: a["payoffs"] for a in doc["alternatives"]}
         eol = sum(prior[s] * (max(p[s] for p in pay.values()) - pay[best][s]) for s in states)
         assert result["evpi"] == pytest.approx(eol)
+
+
+# -- certainty equivalents against exact arithmetic, for every size of risk tolerance --------
+
+
+def exact_certainty_equivalent(values, probabilities, risk_tolerance) -> float:
+    """-R ln E[exp(-X / R)] in exact decimal arithmetic (the standard library's ``decimal``:
+    every double converts exactly, exp and ln are correctly rounded at the precision set).
+
+    The precision grows with R: exp(-t) for t ~ spread / R must keep the digits of t,
+    so 60 significant digits beyond those R / spread pushes below 1. The probabilities
+    are scaled to sum to 1 exactly, as the core takes a lottery's probabilities.
+    """
+    with localcontext() as ctx:
+        ctx.prec = 60 + max(0, math.ceil(math.log10(risk_tolerance)))
+        xs = [Decimal(v) for v in values]
+        ps = [Decimal(p) for p in probabilities]
+        r = Decimal(risk_tolerance)
+        low = min(x for x, p in zip(xs, ps, strict=True) if p > 0)
+        expected = sum(p * (-(x - low) / r).exp() for x, p in zip(xs, ps, strict=True)) / sum(ps)
+        return float(low - r * expected.ln())
+
+
+LOTTERIES = [
+    ([2_000_000.0, 0.0], [0.5, 0.5]),  # the Risky alternative of the large-R defect
+    ([100.0, -50.0, 20.0], [0.3, 0.2, 0.5]),  # the docstring example of certainty_equivalent
+    ([1_000.0, 250.0, 3_000.0, 10.0], [0.125, 0.375, 0.25, 0.25]),
+    ([7.5, 1e6, 3e5], [0.7, 0.2, 0.1]),  # probabilities that sum to 1 - 2**-53 in doubles
+]
+
+
+@pytest.mark.parametrize("values, probabilities", LOTTERIES)
+@pytest.mark.parametrize("risk_tolerance", [1.0, 80.0, 1e3, 1e6, 1e9, 1e12, 1e16, 1e22, 1e25,
+                                            1e100, 1e300])
+def test_certainty_equivalent_matches_exact_arithmetic(values, probabilities, risk_tolerance):
+    # Reference: exact arithmetic in the standard library (decimal, see above).
+    expected = exact_certainty_equivalent(values, probabilities, risk_tolerance)
+    got = certainty_equivalent(values, probabilities, risk_tolerance)
+    assert got == pytest.approx(expected, rel=1e-12)
+
+
+# Invented two-state table: Risky pays 2,000,000 or 0 at 50-50, Safe 900,000 either way.
+RISKY_OR_SAFE = two_state_table(0.5, [("Risky", (2_000_000, 0)), ("Safe", (900_000, 900_000))])
+
+
+@pytest.mark.parametrize("risk_tolerance", [1e22, 1e25, 1e308])
+def test_a_huge_risk_tolerance_gives_the_risk_neutral_choice_and_values(risk_tolerance):
+    # Common practice (Howard 1988; Raiffa 1968): as R grows, exponential utility tends to
+    # the expected value, so the choice, CE and EVPI tend to the risk-neutral ones, here
+    # EV(Risky) = 1,000,000 > 900,000 and EVPI = 0.5 * 2,000,000 + 0.5 * 900,000 - 1,000,000
+    # = 450,000 (computed by hand).
+    neutral = valuation.evaluate(RISKY_OR_SAFE)
+    assert neutral["evpi"] == pytest.approx(450_000, rel=1e-12)
+    result = valuation.evaluate(RISKY_OR_SAFE, risk_tolerance=risk_tolerance)
+    assert result["policy"]["text"] == "Choose 'Risky'."
+    assert result["without_information"]["best_alternative"] == "Risky"
+    ce = {alt["name"]: alt["certainty_equivalent"] for alt in result["alternatives"]}
+    assert ce["Risky"] == pytest.approx(1_000_000, rel=1e-9)
+    assert ce["Risky"] <= 1_000_000 * (1 + 1e-15)  # never above the expected value
+    assert ce["Safe"] == 900_000
+    assert result["evpi"] == pytest.approx(450_000, rel=1e-9)
+
+
+@pytest.mark.parametrize("risk_tolerance", [1e-3, 0.01, 0.1])
+def test_a_rare_worst_outcome_at_a_small_risk_tolerance_matches_exact_arithmetic(risk_tolerance):
+    # Reference: exact arithmetic in the standard library (decimal). E[exp(-(X - m) / R)]
+    # is about 1e-20 here: 1 + sum p * expm1(...) would cancel to 0 (a CE of +inf), so the
+    # core takes the plain sum's log there (utility.log_expectation).
+    values, probabilities = [0.0, 1.0], [1e-20, 1.0]
+    expected = exact_certainty_equivalent(values, probabilities, risk_tolerance)
+    assert certainty_equivalent(values, probabilities, risk_tolerance) == pytest.approx(
+        expected, rel=1e-12)

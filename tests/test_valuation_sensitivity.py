@@ -540,3 +540,19 @@ def test_the_docstring_examples_hold(module):
 
     failed, attempted = doctest.testmod(importlib.import_module(module))
     assert attempted > 0 and failed == 0
+
+
+@pytest.mark.parametrize("name", ["heating_payoff_table.json", "heating_tree.json"])
+def test_tornado_at_a_huge_risk_tolerance_is_the_risk_neutral_tornado(name):
+    # Common practice (Howard 1988): exponential utility tends to the expected value as R
+    # grows; the batched certainty equivalents (valuation.batch) must tend there too, also
+    # where a rescaled prior such as 0.3 / 0.7 sums to 1 only to rounding.
+    doc = json.loads((FIXTURES / name).read_text())
+    neutral = {row["name"]: row for row in tornado(doc)}
+    averse = {row["name"]: row for row in tornado(doc, risk_tolerance=1e308)}
+    assert averse.keys() == neutral.keys()
+    for key, row in averse.items():
+        assert (row["plan_low"], row["plan_high"]) == (neutral[key]["plan_low"],
+                                                       neutral[key]["plan_high"])
+        for side in ("value_low", "value_high"):
+            assert row[side] == pytest.approx(neutral[key][side], rel=1e-9, abs=1e-6)

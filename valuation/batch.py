@@ -26,6 +26,7 @@ from valuation.flattree import CHANCE, DECISION, END, FlatTree
 from valuation.limits import TIE_TOLERANCE
 from valuation.parameters import Parameter, rescale_row
 from valuation.table import PayoffTable
+from valuation.utility import log_expectations
 
 __all__ = ["Setting", "BatchValues", "evaluate_batch", "plan_value", "plan_label", "first_choice_label"]
 
@@ -100,16 +101,18 @@ def _ce_rows(x: np.ndarray, p: np.ndarray, r: float, axis: int) -> np.ndarray:
     """Certainty equivalent along ``axis`` (the states), as ``table_eval._lottery_ce``.
 
     Outcomes of probability 0 are left out, and the minimum of the others is
-    factored out so that no exponential overflows.
+    factored out so that no exponential overflows; the logarithm is
+    ``utility.log_expectations``'s (exact for a large R, see there).
     """
     live = p > 0
     m = np.min(np.where(live, x, np.inf), axis=axis, keepdims=True)
     with np.errstate(over="ignore", invalid="ignore"):
-        e = np.where(live, np.exp(np.where(live, -(x - m) / r, 0.0)), 0.0)
-    total = np.sum(e * np.where(live, p, 0.0), axis=axis)
-    # A signal of probability 0 has no live state: its -inf is masked by the caller.
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return np.squeeze(m, axis=axis) - r * np.log(total)
+        exponent = np.where(live, -(x - m) / r, 0.0)
+    p = np.where(live, p, 0.0)
+    log_total = log_expectations(np.sum(p, axis=axis), np.sum(p * np.exp(exponent), axis=axis),
+                                 np.sum(p * np.where(live, np.expm1(exponent), 0.0), axis=axis))
+    # A signal of probability 0 has no live state: its NaN is masked by the caller.
+    return np.squeeze(m, axis=axis) - r * log_total
 
 
 def _ce_over_signals(value_by_signal, ps, live, r: float) -> np.ndarray:
@@ -121,8 +124,11 @@ def _ce_over_signals(value_by_signal, ps, live, r: float) -> np.ndarray:
     vals = np.where(live, value_by_signal, np.inf)
     m = vals.min(axis=1, keepdims=True)
     with np.errstate(over="ignore", invalid="ignore"):
-        e = np.where(live, np.exp(np.where(live, -(vals - m) / r, 0.0)), 0.0)
-    return m[:, 0] - r * np.log(np.sum(np.where(live, ps, 0.0) * e, axis=1))
+        exponent = np.where(live, -(vals - m) / r, 0.0)
+    p = np.where(live, ps, 0.0)
+    log_total = log_expectations(np.sum(p, axis=1), np.sum(p * np.exp(exponent), axis=1),
+                                 np.sum(p * np.where(live, np.expm1(exponent), 0.0), axis=1))
+    return m[:, 0] - r * log_total
 
 
 def _table_batch(t: PayoffTable, prior, payoffs, costs, liks, r: float | None) -> BatchValues:
@@ -248,10 +254,13 @@ def _tree_batch(tree: FlatTree, prob, cash, payoff, r: float | None,
             live = p > 0
             m = np.minimum.reduceat(np.where(live, bv, np.inf), starts, axis=1)
             with np.errstate(over="ignore", invalid="ignore"):
-                e = np.where(live, np.exp(np.where(live, -(bv - m[:, seg]) / r, 0.0)), 0.0)
-            total = np.add.reduceat(p * e, starts, axis=1)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                chance_value = m - r * np.log(total)
+                exponent = np.where(live, -(bv - m[:, seg]) / r, 0.0)
+            e = np.where(live, np.exp(exponent), 0.0)
+            d = np.where(live, np.expm1(exponent), 0.0)
+            # Decision segments (no live branch) come out NaN here and take ``top`` below.
+            chance_value = m - r * log_expectations(np.add.reduceat(p, starts, axis=1),
+                                                    np.add.reduceat(p * e, starts, axis=1),
+                                                    np.add.reduceat(p * d, starts, axis=1))
         else:
             chance_value = np.add.reduceat(p * bv, starts, axis=1)
         # Decision: the first branch (document order) within the tie tolerance of the best.

@@ -36,6 +36,7 @@ from valuation.limits import (
     TIE_TOLERANCE,
 )
 from valuation.table import COMMON_FIELDS, check_common
+from valuation.utility import log_expectations
 
 __all__ = ["FlatTree", "Rollback", "build_tree", "rollback", "reach_probabilities", "spans",
            "amount_total"]
@@ -812,10 +813,13 @@ def _chance_ce(bv, p, g: _Group, r) -> np.ndarray:
     masked = np.where(p > 0, bv, np.inf)
     m = np.minimum.reduceat(masked, g.starts)
     seg = g.seg if g.seg is not None else np.repeat(np.arange(len(g.starts)), g.buckets[0].width)
-    # Branches of probability 0 are left out of the sum (their exponent may overflow).
-    exponent = np.where(p > 0, -(bv - m[seg]) / r, -np.inf)
-    total = _segment_sum(p * np.exp(exponent), g)
-    return m - r * np.log(total)
+    # Branches of probability 0 are left out of the sums (their exponent may overflow);
+    # a tiny R overflows the exponent of the others to -inf, whose exp is 0.
+    with np.errstate(over="ignore"):
+        exponent = np.where(p > 0, -(bv - m[seg]) / r, -np.inf)
+    log_total = log_expectations(_segment_sum(p, g), _segment_sum(p * np.exp(exponent), g),
+                                 _segment_sum(p * np.expm1(exponent), g))
+    return m - r * log_total
 
 
 def reach_probabilities(tree: FlatTree, best: np.ndarray,

@@ -22,8 +22,10 @@ order of operations decides a result, it is restated here:
   or minimum of zero taken where the array code reduces is asked of numpy itself
   (``_max_reduced``, ``_min``). A tree with a node of more than ``MAX_LIST_WIDTH``
   branches is left to the array code.
-- ``np.exp`` and ``np.log`` are not the C library's (they differ in the last bit now
-  and then), so they are still called, on a whole level at a time.
+- ``np.exp``, ``np.expm1``, ``np.log`` and ``np.log1p`` are not the C library's (they
+  differ in the last bit now and then), so they are still called, on a whole level at a
+  time; the logarithm of a certainty equivalent is ``utility.log_expectations`` given
+  the same sums (``utility.log_expectation`` where the array code takes that).
 - Amounts are bounded (``AMOUNT_TOTAL_LIMIT``, which ``flattree`` already holds every
   document to) so that no value overflows: infinities and NaN, where numpy and Python
   order comparisons differently, cannot arise.
@@ -44,7 +46,7 @@ import numpy as np
 from valuation.flattree import CHANCE, DECISION, END, FlatTree, _cash_is_identity
 from valuation.limits import AMOUNT_TOTAL_LIMIT, INFORMATION_NODE_LIMIT, TIE_TOLERANCE
 from valuation.tree_eval import profile_from_outcomes
-from valuation.utility import certainty_equivalent
+from valuation.utility import certainty_equivalent, log_expectation, log_expectations
 
 __all__ = ["LIST_PATH_NODES", "LIST_CLAIRVOYANT_NODES", "ListTree", "ListRollback", "as_lists",
            "rollback", "clairvoyant_on_lists", "clairvoyant_value", "learning_values", "risk_profile",
@@ -208,7 +210,7 @@ def _sum_of_at_most_8(x: list[float]) -> float:
 def _certainty_equivalents(lotteries: list[tuple[list[float], list[float]]], r: float) -> list[float]:
     """``utility.certainty_equivalent`` of several lotteries of at most 8 outcomes (each
     with one outcome of positive probability at least), step for step, with one np.exp
-    for all of them instead of a few numpy calls each."""
+    and one np.expm1 for all of them instead of a few numpy calls each."""
     lows, exponents, live = [], [], []
     for values, probs in lotteries:
         x = [v for v, p in zip(values, probs, strict=True) if p > 0]
@@ -217,8 +219,13 @@ def _certainty_equivalents(lotteries: list[tuple[list[float], list[float]]], r: 
         exponents += [-(v - m) / r for v in x]
         live.append([p for p in probs if p > 0])
     e = iter(np.exp(exponents).tolist())
-    return [m - r * math.log(_sum_of_at_most_8([p * next(e) for p in ps]))
-            for m, ps in zip(lows, live, strict=True)]
+    d = iter(np.expm1(exponents).tolist())
+    out = []
+    for m, ps in zip(lows, live, strict=True):
+        exp_sum = _sum_of_at_most_8([p * next(e) for p in ps])
+        expm1_sum = _sum_of_at_most_8([p * next(d) for p in ps])
+        out.append(m - r * log_expectation(_sum_of_at_most_8(ps), exp_sum, expm1_sum))
+    return out
 
 
 def _same(a: float, b: float) -> bool:
@@ -274,7 +281,8 @@ def _expect_level(lt: ListTree, chance: list[int], values: list[float]) -> None:
 
 
 def _chance_ce_level(lt: ListTree, nodes: list[int], value: list[float], r: float) -> None:
-    """``flattree._chance_ce`` for the chance nodes of one depth: one np.exp, one np.log."""
+    """``flattree._chance_ce`` for the chance nodes of one depth: one np.exp, one np.expm1
+    and one ``log_expectations`` for all of them, sums added as ``flattree._segment_sum``."""
     if not nodes:
         return
     child, prob, cash, first, count, skip = (lt.child, lt.prob, lt.cash, lt.first_branch,
@@ -288,16 +296,23 @@ def _chance_ce_level(lt: ListTree, nodes: list[int], value: list[float], r: floa
         lows.append(m)
         exponents += [-(v - m) / r if q > 0 else -_INF for v, q in zip(bv, p, strict=True)]
     e = np.exp(exponents).tolist()
-    totals = []
+    d = np.expm1(exponents).tolist()
+    prob_sums, exp_sums, expm1_sums = [], [], []
     pos = 0
     for i in nodes:
         f = first[i]
-        total = prob[f] * e[pos]
+        prob_sum, exp_sum, expm1_sum = prob[f], prob[f] * e[pos], prob[f] * d[pos]
         for j in range(1, count[i]):
-            total += prob[f + j] * e[pos + j]
-        totals.append(total)
+            q = prob[f + j]
+            prob_sum += q
+            exp_sum += q * e[pos + j]
+            expm1_sum += q * d[pos + j]
+        prob_sums.append(prob_sum)
+        exp_sums.append(exp_sum)
+        expm1_sums.append(expm1_sum)
         pos += count[i]
-    for i, m, log_total in zip(nodes, lows, np.log(totals).tolist(), strict=True):
+    log_totals = log_expectations(prob_sums, exp_sums, expm1_sums).tolist()
+    for i, m, log_total in zip(nodes, lows, log_totals, strict=True):
         value[i] = m - r * log_total
 
 
@@ -502,7 +517,8 @@ def learning_values(lt: ListTree, nodes: list[int], base_value: float,
         for k, node in enumerate(nodes):
             f = first[node]
             # A single branch of probability 1 is left, whose certainty equivalent is its
-            # value (m is that value, exp(-0.0) = 1.0, log(1.0) = 0.0, m - r * 0.0 = m).
+            # value (m is that value, expm1(-0.0) = -0.0, the sums give q = +0.0 and
+            # log1p(0.0) = 0.0, m - r * 0.0 = m: see ``utility.log_expectation``).
             rows += [[k, prob[f + j], node, v] for j, v in enumerate(branch_values[node])
                      if prob[f + j] > 0]
         _walk_up_together(lt, base, branch_values, rows, r)
@@ -601,7 +617,7 @@ def _walk_up(lt: ListTree, base: list[float], branch_values: list, node: int, v:
 
 def _ce_values(lt: ListTree, nodes: list[int], bvs: list[list[float]], r: float) -> list[float]:
     """Certainty equivalents of chance nodes from their branch values, as ``_root_values``
-    takes them: one np.exp and one np.log for all of them."""
+    takes them: one np.exp, one np.expm1 and one ``log_expectations`` for all of them."""
     prob, first = lt.prob, lt.first_branch
     lows, exponents = [], []
     for i, bv in zip(nodes, bvs, strict=True):
@@ -610,17 +626,21 @@ def _ce_values(lt: ListTree, nodes: list[int], bvs: list[list[float]], r: float)
         lows.append(m)
         exponents += [-(v - m) / r for v, q in zip(bv, p, strict=True) if q > 0]
     e = iter(np.exp(exponents).tolist())
-    totals = []
+    d = iter(np.expm1(exponents).tolist())
+    prob_sums, exp_sums, expm1_sums = [], [], []
     for i, bv in zip(nodes, bvs, strict=True):
         p = prob[first[i]:first[i] + len(bv)]
-        totals.append(_reduceat_sum([q * (next(e) if q > 0 else 0.0) for q in p]))
-    return [m - r * log_total for m, log_total in zip(lows, np.log(totals).tolist(), strict=True)]
+        prob_sums.append(_reduceat_sum(p))
+        exp_sums.append(_reduceat_sum([q * (next(e) if q > 0 else 0.0) for q in p]))
+        expm1_sums.append(_reduceat_sum([q * (next(d) if q > 0 else 0.0) for q in p]))
+    log_totals = log_expectations(prob_sums, exp_sums, expm1_sums).tolist()
+    return [m - r * log_total for m, log_total in zip(lows, log_totals, strict=True)]
 
 
 def _walk_up_together(lt: ListTree, base: list[float], branch_values: list, rows: list,
                       r: float) -> None:
     """``_walk_up`` under a risk tolerance, for all rows at once and one depth at a time,
-    so that the certainty equivalents of a depth take one np.exp and one np.log. In
+    so that the certainty equivalents of a depth take one np.exp and one np.expm1. In
     place: each row ends with the root's value in ``row[3]``."""
     depth, kind, root = lt.depth, lt.kind, lt.root
     live = []

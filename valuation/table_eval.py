@@ -22,6 +22,7 @@ import numpy as np
 from valuation.bayes import Revision, revise
 from valuation.limits import TIE_TOLERANCE
 from valuation.table import PayoffTable
+from valuation.utility import log_expectation, log_expectations
 
 __all__ = ["TableValues", "StudyValues", "value_table", "first_best", "near_best"]
 
@@ -44,8 +45,11 @@ def _lottery_ce(outcomes: np.ndarray, probs: np.ndarray, r: float) -> np.ndarray
     """CE of each row of ``outcomes`` (rows x states) under one probability vector."""
     live = probs > 0
     x = outcomes[:, live]
+    p = probs[live]
     m = x.min(axis=1)
-    return m - r * np.log(np.exp(-(x - m[:, None]) / r) @ probs[live])
+    with np.errstate(over="ignore"):  # a tiny R: the exponent is -inf, its exp 0
+        exponent = -(x - m[:, None]) / r
+    return m - r * log_expectations(np.sum(p), np.exp(exponent) @ p, np.expm1(exponent) @ p)
 
 
 def _ce_by_signal(x: np.ndarray, posterior: np.ndarray, live: np.ndarray, r: float) -> np.ndarray:
@@ -125,9 +129,12 @@ def _value_study(x, prior, likelihoods, best0, v0, r) -> StudyValues:
     value_by_signal = np.where(live, crit[np.maximum(best, 0), np.arange(crit.shape[1])], np.nan)
     ps = rev.signal_probability
     if r:
-        vals = value_by_signal[live]
+        vals, p = value_by_signal[live], ps[live]
         m = vals.min()
-        free = float(m - r * np.log(np.sum(ps[live] * np.exp(-(vals - m) / r))))
+        with np.errstate(over="ignore"):
+            exponent = -(vals - m) / r
+        free = float(m - r * log_expectation(float(np.sum(p)), float(np.sum(p * np.exp(exponent))),
+                                             float(np.sum(p * np.expm1(exponent)))))
     else:
         free = float(np.sum(ps[live] * value_by_signal[live]))
     plan_ev = float(sum(joint_values[best[g], g] for g in np.flatnonzero(live)))

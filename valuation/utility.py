@@ -4,6 +4,10 @@ With u(x) = -exp(-x / R) for a risk tolerance R > 0, the certainty equivalent of
 a lottery is CE = -R ln E[exp(-X / R)]. We evaluate it as
 m - R ln E[exp(-(X - m) / R)] with m = min X over outcomes of positive
 probability, so no exponential overflows and none underflows to a log of 0.
+The logarithm of that expectation is taken by ``log_expectation`` (see there
+why it needs ``expm1``/``log1p`` for a large R and the sum of the
+probabilities for every R); every certainty equivalent in ``valuation`` goes
+through it or its array form ``log_expectations``.
 
 The exponential family is the one (besides linear) with the delta property:
 adding a constant to every outcome adds it to the CE (Luenberger, *Investment
@@ -25,7 +29,8 @@ import numpy as np
 
 from valuation.errors import ParameterError
 
-__all__ = ["certainty_equivalent", "check_risk_tolerance", "risk_tolerance_from_gamble"]
+__all__ = ["certainty_equivalent", "check_risk_tolerance", "log_expectation", "log_expectations",
+           "risk_tolerance_from_gamble"]
 
 
 def check_risk_tolerance(risk_tolerance: float | None) -> float | None:
@@ -65,8 +70,47 @@ def certainty_equivalent(values, probabilities, risk_tolerance: float) -> float:
     if not live.any():
         raise ParameterError("probabilities: at least one outcome must have positive probability")
     m = float(x[live].min())
-    total = float(np.sum(p[live] * np.exp(-(x[live] - m) / r)))
-    return m - r * math.log(total)
+    p = p[live]
+    with np.errstate(over="ignore"):  # a tiny R: the exponent is -inf, its exp 0
+        exponent = -(x[live] - m) / r
+    return m - r * log_expectation(float(np.sum(p)), float(np.sum(p * np.exp(exponent))),
+                                   float(np.sum(p * np.expm1(exponent))))
+
+
+#: Below this, 1 + sum p * expm1(t) / sum p cancels, and the plain sum of p * exp(t) is kept.
+_LOG1P_FLOOR = -0.5
+
+
+def log_expectation(prob_sum: float, exp_sum: float, expm1_sum: float) -> float:
+    """ln E[exp(T)] for exponents T <= 0, from three sums over the same outcomes:
+    sum p, sum p * exp(T) and sum p * expm1(T).
+
+    Why not ln(sum p * exp(T)): with a risk tolerance far above the spread of the
+    outcomes every T is below 1e-16 or so, each exp(T) rounds to 1 and the certainty
+    equivalent collapses to the worst outcome. E[exp(T)] = 1 + q with
+    q = sum p * expm1(T) / sum p keeps those T, and log1p(q) is exact to rounding.
+    Dividing by sum p makes the probabilities sum to 1 exactly: else ln(sum p), a
+    rounding error of 1e-16 or a tolerated 1e-6, times R joins the certainty
+    equivalent (1e292 at R = 1e308), and as R grows the value no longer tends to the
+    expected value. Where E[exp(T)] is far below 1 (a small R), 1 + q cancels
+    instead and the plain sum is the accurate one. A q of -0.0 is made +0.0, so that a
+    certain outcome m keeps its bits (m - R * 0.0).
+    """
+    q = expm1_sum / prob_sum + 0.0
+    if q > _LOG1P_FLOOR:
+        return math.log1p(q)
+    return math.log(exp_sum / prob_sum)
+
+
+def log_expectations(prob_sums, exp_sums, expm1_sums) -> np.ndarray:
+    """``log_expectation`` element by element (arrays broadcast together), with numpy's
+    log1p and log. An element whose sums are all 0 (no outcome of positive probability,
+    which callers mask) comes out NaN, without a warning."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        q = np.asarray(expm1_sums, dtype=float) / prob_sums + 0.0
+        far = np.log(np.asarray(exp_sums, dtype=float) / prob_sums)
+    near = np.log1p(np.maximum(q, _LOG1P_FLOOR))
+    return np.where(q > _LOG1P_FLOOR, near, far)
 
 
 def risk_tolerance_from_gamble(largest_gain: float) -> float:

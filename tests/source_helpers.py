@@ -8,6 +8,8 @@ register's own services from draft to committed.
 from __future__ import annotations
 
 import copy
+import datetime
+import io
 import json
 from pathlib import Path
 
@@ -94,3 +96,22 @@ def tellurion_source(people, *, with_records: bool = True):
             sources.import_records(actor=people.ana, source=source, file=fh,
                                    filename="tellurion_records.csv")
     return source
+
+
+# Invented: a claim that rates "poor" impossible when the state is hot (a claimed 0).
+NEVER_POOR_WHEN_HOT = {"hot": {"good": 1.0, "poor": 0.0}, "cold": {"good": 0.2, "poor": 0.8}}
+
+
+def many_records_csv(n: int) -> bytes:
+    """``n`` invented records of the survey source, one a day from 2000-01-01, in bulk."""
+    start = datetime.date(2000, 1, 1)
+    lines = ["date,signal,state"] + [
+        f"{start + datetime.timedelta(days=i)},{('good', 'poor')[i % 2]},{('hot', 'cold')[i % 3 % 2]}"
+        for i in range(n)]
+    return ("\n".join(lines) + "\n").encode("ascii")
+
+
+def import_many(people, source, n: int) -> None:
+    """Give ``source`` ``n`` records through the import service (one bulk insert)."""
+    sources.import_records(actor=people.ana, source=source, file=io.BytesIO(many_records_csv(n)),
+                           filename="many.csv")

@@ -227,3 +227,51 @@ def test_help_describes_the_files():
     )
     assert result.returncode == 0
     assert "CLAIMED.json" in result.stdout and "--prior-strength" in result.stdout
+
+
+@pytest.mark.parametrize(
+    ("strength", "shown"), [("1e20", "1e+20"), ("1e300", "1e+300"), ("1000000.5", "1000000.5")]
+)
+def test_prior_strength_is_capped_at_the_apis_limit(tmp_path, capsys, strength, shown):
+    claim = tmp_path / "claim.json"
+    claim.write_text('{"hot": {"good": 1.0, "poor": 0.0}, "cold": {"good": 0.2, "poor": 0.8}}')
+    records = tmp_path / "r.csv"
+    records.write_text("date,signal,state\n2024-01-01,poor,hot\n2024-01-02,good,cold\n")
+    # The probe: 1e20 gave NaN intervals under a false note, 1e300 reversed intervals.
+    code, out, err = run_cli(
+        capsys, records, "--claimed", claim, "--prior-strength", strength, "--json"
+    )
+    assert code == 2 and out == ""
+    assert err == (
+        "error: --prior-strength: must be at most 1,000,000 past studies (a claim worth more "
+        f"is a typing mistake), got {shown}\n"
+    )
+    code, out, err = run_cli(
+        capsys, records, "--claimed", claim, "--prior-strength", "1000000", "--json"
+    )
+    assert code == 0, err
+    doc = json.loads(out)
+    low, high = doc["states"]["hot"]["signals"]["good"]["interval_90"]
+    # scipy.stats.beta: hot's "good" marginal is Beta(1e6, 0.01 + 1) (claimed 0 floored).
+    assert [low, high] == pytest.approx(list(stats.beta.ppf([0.05, 0.95], 1e6, 1.01)), rel=1e-9)
+    assert low < high
+    # The only figure that is not finite is the claim's log score, and the note says why.
+    assert doc["log_score"] is None
+    assert doc["non_finite"]["fields"] == ["log_score"]
+    assert doc["non_finite"]["meaning"] == (
+        "minus infinity: a state that came true had been given probability 0"
+    )
+
+
+def test_a_claim_with_a_signal_no_state_gives_exits_2(tmp_path, capsys):
+    claim = tmp_path / "claim.json"
+    claim.write_text('{"hot": {"good": 1, "poor": 0}, "cold": {"good": 1, "poor": 0}}')
+    records = tmp_path / "r.csv"
+    records.write_text("date,signal,state\n2024-01-01,good,hot\n")
+    code, out, err = run_cli(capsys, records, "--claimed", claim, "--json")
+    assert code == 2 and out == ""
+    assert err == (
+        f"error: {claim}: claimed: signal 'poor' has probability 0 in every state: no state "
+        "could give it, and a record of it could not be scored; give it a probability above 0 "
+        "in some state, or leave it out\n"
+    )

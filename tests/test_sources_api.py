@@ -9,9 +9,11 @@ import pytest
 
 from decisions.models import StudyRecord, StudySource
 from tests.source_helpers import (
+    NEVER_POOR_WHEN_HOT,
     TELLURION_CSV,
     committed,
     draft_with,
+    import_many,
     survey_source,
     survey_table,
     tellurion_claim,
@@ -290,3 +292,94 @@ def test_the_record_exports_as_csv_that_reimports_and_runs_no_formula(people, cl
     assert lines[-1] == "2026-10-01,favourable,cold reservoir,manual,,\"'=HYPERLINK(\"\"x\"\")\""
     assert len(lines) == 32
     assert client_for(people.omar).get(f"/api/sources/{source.pk}/records.csv").status_code == 404
+
+
+# ---- reads that must not fail on what the register accepted ------------------------------
+
+MINUS_INFINITY = "minus infinity: a state that came true had been given probability 0"
+
+
+def test_a_claimed_zero_contradicted_by_a_record_reads_as_null_with_a_note(people, client_for):
+    ana = client_for(people.ana)
+    r = ana.post("/api/sources/", {"team": people.team.pk, "name": "Never poor when hot",
+                                   "claimed": NEVER_POOR_WHEN_HOT}, format="json")
+    assert r.status_code == 201, r.data
+    sid = r.data["id"]
+    r = ana.post(f"/api/sources/{sid}/records/", {"date": "2024-01-01", "signal": "poor",
+                                                  "state": "hot"}, format="json")
+    assert r.status_code == 201, r.data
+    r = ana.get(f"/api/sources/{sid}/")
+    assert r.status_code == 200
+    # The claim gives hot probability 0 after "poor" (Bayes: 0.5 * 0 / (0.5 * 0 + 0.5 * 0.8)),
+    # and hot came true: log 0 is minus infinity, which JSON cannot carry.
+    assert r.data["scores"]["claimed"]["log_score"] is None
+    assert r.data["scores"]["calibrated"]["log_score"] is not None  # floored claim: finite
+    assert r.data["non_finite"]["fields"] == ["scores.claimed.log_score"]
+    assert r.data["non_finite"]["meaning"] == MINUS_INFINITY
+    r = ana.get(f"/api/sources/{sid}/?window=1")
+    assert r.status_code == 200
+    assert r.data["trend"]["windows"][0]["log_score"] is None
+    assert r.data["non_finite"]["fields"] == ["scores.claimed.log_score",
+                                              "trend.windows[0].log_score"]
+
+
+def test_a_claim_with_a_signal_no_state_gives_is_refused_at_creation(people, client_for):
+    never = {"hot": {"good": 1, "poor": 0}, "cold": {"good": 1, "poor": 0}}
+    r = client_for(people.ana).post("/api/sources/", {"team": people.team.pk, "name": "Never poor",
+                                                      "claimed": never}, format="json")
+    assert r.status_code == 400
+    assert r.data["errors"] == [{"location": "claimed", "message":
+                                 "signal 'poor' has probability 0 in every state: no state could "
+                                 "give it, and a record of it could not be scored; give it a "
+                                 "probability above 0 in some state, or leave it out"}]
+    assert StudySource.objects.count() == 0
+
+
+def _even_claim(n_states: int, n_signals: int) -> dict:
+    return {f"s{i}": {f"k{j}": 1 / n_signals for j in range(n_signals)} for i in range(n_states)}
+
+
+@pytest.mark.parametrize(("at_limit", "over", "errors"), [
+    (_even_claim(100, 2), _even_claim(101, 2),
+     [{"location": "claimed", "message": "at most 100 states are allowed, got 101"}]),
+    (_even_claim(2, 100), _even_claim(2, 101),
+     [{"location": "claimed['s0']", "message": "at most 100 signals are allowed, got 101"},
+      {"location": "claimed['s1']", "message": "at most 100 signals are allowed, got 101"}]),
+    (_even_claim(100, 100), _even_claim(5_000, 2),
+     [{"location": "claimed", "message": "at most 100 states are allowed, got 5,000"}]),
+], ids=["states", "signals", "the probe's 5,000 states"])
+def test_a_claim_holds_at_most_a_hundred_states_and_signals(people, client_for, at_limit, over,
+                                                             errors):
+    ana = client_for(people.ana)
+    r = ana.post("/api/sources/", {"team": people.team.pk, "name": "Over", "claimed": over},
+                 format="json")
+    assert r.status_code == 400 and r.data["errors"] == errors
+    assert StudySource.objects.count() == 0
+    r = ana.post("/api/sources/", {"team": people.team.pk, "name": "At the limit",
+                                   "claimed": at_limit}, format="json")
+    assert r.status_code == 201, r.data
+    assert ana.get(f"/api/sources/{r.data['id']}/").status_code == 200
+
+
+def test_a_long_record_is_read_with_the_least_step_and_says_so(people, client_for):
+    source = survey_source(people)
+    import_many(people, source, 5_009)  # windows of 10: 5,000 at step 1, the limit
+    vic = client_for(people.vic)
+    r = vic.get(f"/api/sources/{source.pk}/")
+    assert r.status_code == 200, r.data
+    assert r.data["trend"]["step"] == 1 and len(r.data["trend"]["windows"]) == 5_000
+    assert "step_note" not in r.data["trend"]
+    client_for(people.ana).post(f"/api/sources/{source.pk}/records/",
+                                {"date": "2024-01-01", "signal": "good", "state": "hot"},
+                                format="json")
+    r = vic.get(f"/api/sources/{source.pk}/")
+    assert r.status_code == 200, r.data
+    trend = r.data["trend"]
+    # 5,010 records: 5,001 windows at step 1; the least step keeping to 5,000 is 2, which
+    # makes ceil(5,001 / 2) = 2,501 windows, the last ending at the last record.
+    assert trend["step"] == 2 and len(trend["windows"]) == 2_501
+    assert trend["windows"][-1]["end_date"] == "2024-01-01"
+    assert trend["step_note"] == (
+        "windows end every 2 records, the least step that keeps the trend within 5,000 windows "
+        "and 50,000 cells (windows x states x signals; step 1 would make 5,001 windows)")
+    assert r.data["calibration"]["records"] == 5_010

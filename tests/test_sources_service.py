@@ -230,3 +230,17 @@ def test_comparison_lists_unsourced_studies_without_figures(people):
                                                     "Exploratory borehole"]
     assert all(s["note"] == "no study source is linked to this study" for s in out["studies"])
     assert out["flips"] is False
+
+
+def test_the_prior_strength_limit_is_the_cores_and_holds_at_its_edge(people):
+    from valuation.reliability import MAX_PRIOR_STRENGTH
+
+    assert sources.MAX_PRIOR_STRENGTH is MAX_PRIOR_STRENGTH == 1_000_000.0
+    source = sources.create_source(actor=people.ana, team=people.team, name="Edge (invented)",
+                                   claimed=tellurion_claim(), prior_strength=1_000_000)
+    assert source.prior_strength == 1_000_000.0
+    with pytest.raises(InvalidInput) as err:
+        sources.create_source(actor=people.ana, team=people.team, name="Over (invented)",
+                              claimed=tellurion_claim(), prior_strength=1_000_000.5)
+    assert err.value.problems == [("prior_strength",
+                                   "must be within (0, 1,000,000], got 1000000.5")]

@@ -17,13 +17,20 @@ from hypothesis import strategies as st
 from scipy import stats
 
 from valuation.errors import ModelValidationError, Problem
+from valuation.limits import MAX_SIGNALS, MAX_SOURCE_STATES
 from valuation.reliability import (
     DEFAULT_PRIOR_STRENGTH,
+    MAX_PRIOR_STRENGTH,
+    MAX_ROLLING_CELLS,
     MAX_ROLLING_WINDOWS,
     MIN_PRIOR_PARAMETER,
+    NON_FINITE_MEANINGS,
     Record,
     calibrate,
+    least_step,
+    replace_non_finite,
     rolling,
+    validate_likelihoods,
 )
 
 # Invented demo claim (Tellurion Surveys, an invented firm).
@@ -464,3 +471,109 @@ def test_rolling_refuses_more_windows_than_the_limit_and_names_the_least_step():
     out = rolling(CLAIM, records, window=10, step=2)
     assert len(out["windows"]) == 2546
     assert out["windows"][-1]["end_date"] == records[-1].date.isoformat()
+
+
+# --- limits on the size of a claim and of a trend -----------------------------------------
+
+
+def even_claim(n_states: int, n_signals: int) -> dict:
+    signals = [f"k{j}" for j in range(n_signals)]
+    return {f"s{i}": dict.fromkeys(signals, 1.0 / n_signals) for i in range(n_states)}
+
+
+def test_a_claim_of_at_most_a_hundred_states_and_signals_is_accepted_and_one_more_refused():
+    assert MAX_SOURCE_STATES == MAX_SIGNALS == 100  # valuation.limits, documented there
+    states, signals, matrix = validate_likelihoods(even_claim(100, 100))
+    assert len(states) == len(signals) == 100 and matrix.shape == (100, 100)
+    with pytest.raises(ModelValidationError) as excinfo:
+        validate_likelihoods(even_claim(101, 2))
+    assert problems_of(excinfo) == ["claimed: at most 100 states are allowed, got 101"]
+    with pytest.raises(ModelValidationError) as excinfo:
+        validate_likelihoods(even_claim(1, 101))
+    assert problems_of(excinfo) == ["claimed['s0']: at most 100 signals are allowed, got 101"]
+
+
+def test_a_new_claim_must_give_every_signal_some_state():
+    never = {"hot": {"good": 1.0, "poor": 0.0}, "cold": {"good": 1.0, "poor": 0.0}}
+    with pytest.raises(ModelValidationError) as excinfo:
+        validate_likelihoods(never, every_signal_possible=True)
+    assert problems_of(excinfo) == [
+        "claimed: signal 'poor' has probability 0 in every state: no state could give it, and "
+        "a record of it could not be scored; give it a probability above 0 in some state, "
+        "or leave it out"
+    ]
+    # A stored claim is still read (a source created before the rule stays readable), and
+    # a claim with a 0 in only some states is a new claim like any other.
+    assert validate_likelihoods(never)[1] == ["good", "poor"]
+    validate_likelihoods({"hot": {"good": 1.0, "poor": 0.0}, "cold": {"good": 0.2, "poor": 0.8}},
+                         every_signal_possible=True)
+
+
+def test_prior_strength_is_capped_where_the_intervals_are_still_numbers():
+    claim = {"hot": {"good": 1.0, "poor": 0.0}, "cold": {"good": 0.2, "poor": 0.8}}
+    records = make_records("hot", {"poor": 3})
+    out = calibrate(claim, records, prior_strength=MAX_PRIOR_STRENGTH)
+    good = out["states"]["hot"]["signals"]["good"]
+    # scipy.stats.beta: Beta(1e6, 0.01 + 3), the "good" marginal of hot's Dirichlet(1e6, 3.01).
+    assert good["interval_90"] == pytest.approx(
+        list(stats.beta.ppf([0.05, 0.95], 1e6, 3.01)), rel=1e-9
+    )
+    assert good["interval_90"][0] < good["interval_90"][1]
+    for strength, shown in ((1_000_000.001, "1000000.001"), (1e20, "1e+20"), (1e300, "1e+300")):
+        with pytest.raises(ModelValidationError) as excinfo:
+            calibrate(claim, records, prior_strength=strength)
+        assert problems_of(excinfo) == [
+            f"prior_strength: must be at most 1,000,000 past studies, got {shown}"
+        ]
+
+
+def test_least_step_keeps_windows_and_cells_within_their_limits():
+    assert (MAX_ROLLING_WINDOWS, MAX_ROLLING_CELLS) == (5_000, 50_000)
+    # 2 x 2 claim: 20,000 cells at 5,000 windows, so the window limit binds.
+    assert least_step(5_009, 10, 4) == 1  # 5,000 windows
+    assert least_step(5_010, 10, 4) == 2  # 5,001 windows at step 1 -> 2,501
+    # 10 x 10 claim: 50,000 / 100 = 500 windows at most; 600 records of 10 make 591.
+    assert least_step(509, 10, 100) == 1
+    assert least_step(600, 10, 100) == 2
+    assert least_step(5, 10, 4) == 1  # fewer records than a window
+
+
+def test_rolling_refuses_more_cells_than_the_limit_and_accepts_the_least_step():
+    claim = even_claim(10, 10)
+    records = [
+        Record(dt.date(2000, 1, 1) + dt.timedelta(days=i), f"k{i % 10}", f"s{i % 7}")
+        for i in range(600)
+    ]
+    with pytest.raises(ModelValidationError) as excinfo:
+        rolling(claim, records, window=10)
+    assert problems_of(excinfo) == [
+        "step: 591 windows of 100 cells (states x signals) is 59,100 cells, more than 50,000; "
+        "use a step of at least 2"
+    ]
+    out = rolling(claim, records, window=10, step=2)
+    assert len(out["windows"]) == 296  # window ends 600, 598, ..., 10
+    # The counts of the last window, built from boundary prefix counts, against a count
+    # of its ten records by hand.
+    last = out["windows"][-1]["states"]
+    counted = {(r.state, r.signal) for r in records[-10:]}
+    for state, block in last.items():
+        for signal, cell in block["signals"].items():
+            assert cell["count"] == (1 if (state, signal) in counted else 0)
+
+
+def test_non_finite_figures_become_none_with_the_reason_by_kind():
+    report = {"log_score": float("-inf"), "windows": [{"log_score": -np.inf}, {"x": 1.0}],
+              "odd": float("nan"), "big": float("inf"), "ok": 0.5}
+    clean, note = replace_non_finite(report)
+    assert clean == {"log_score": None, "windows": [{"log_score": None}, {"x": 1.0}],
+                     "odd": None, "big": None, "ok": 0.5}
+    assert note["kinds"] == {"-inf": ["log_score", "windows[0].log_score"], "nan": ["odd"],
+                             "inf": ["big"]}
+    assert note["fields"] == ["log_score", "windows[0].log_score", "odd", "big"]
+    assert note["meaning"] == "; ".join(NON_FINITE_MEANINGS[k] for k in ("-inf", "nan", "inf"))
+    assert note["meaning"].startswith(
+        "minus infinity: a state that came true had been given probability 0"
+    )
+    _, only_nan = replace_non_finite({"a": float("nan")})
+    assert "minus infinity" not in only_nan["meaning"]
+    assert replace_non_finite({"a": [1.0, 2]}) == ({"a": [1.0, 2]}, None)

@@ -19,9 +19,11 @@ from decisions.services import sources
 from decisions.web.forms_sources import WEB_IMPORT_MAX_BYTES
 from decisions.web.views_sources import PENDING
 from tests.source_helpers import (
+    NEVER_POOR_WHEN_HOT,
     TELLURION_CSV,
     draft_with,
     heating_table,
+    import_many,
     survey_source,
     survey_table,
     tellurion_source,
@@ -409,3 +411,43 @@ def test_new_pages_carry_the_caution_and_the_nav_links(source, people):
         assert CAUTION in page
         assert f'href="{reverse("web-sources")}">Sources</a>' in page
         assert f'href="{reverse("web-portfolio")}">Portfolio</a>' in page
+
+
+# ---- pages that must not fail on what the register accepted ----------------------------------
+
+def test_a_claimed_zero_contradicted_by_a_record_shows_a_dash_and_why(people):
+    source = sources.create_source(actor=people.ana, team=people.team, name="Never poor when hot",
+                                   claimed=NEVER_POOR_WHEN_HOT)
+    sources.add_record(actor=people.ana, source=source, date="2024-01-01", signal="poor",
+                       state="hot")
+    response = client_as(people.vic).get(reverse("web-source", args=[source.pk]) + "?window=1")
+    assert response.status_code == 200
+    page = html(response)
+    scores = page.split('id="accuracy-h"')[1].split('id="trend-h"')[0]
+    row = re.search(r"Log score \(higher is better\)</th><td class=\"num\">(.*?)</td>", scores)
+    assert row and row.group(1) == "—"
+    assert ("A score shown as — is not a finite number: minus infinity: a state that came true "
+            "had been given probability 0.") in scores
+    assert "could not be computed" not in page
+
+
+def test_a_claim_with_a_signal_no_state_gives_is_refused_on_the_page(people):
+    data = create_post(people, **{"claim-0-0": "1", "claim-0-1": "0", "claim-1-0": "1",
+                                  "claim-1-1": "0"})
+    response = client_as(people.ana).post(reverse("web-sources"), data)
+    assert response.status_code == 400
+    assert ("claimed: signal &#x27;poor&#x27; has probability 0 in every state: no state could "
+            "give it") in html(response)
+    assert StudySource.objects.count() == 0
+
+
+def test_a_long_record_shows_its_trend_with_the_step_used(source, people):
+    import_many(people, source, 5_010)  # 5,001 windows of 10 at step 1: one too many
+    response = client_as(people.vic).get(reverse("web-source", args=[source.pk]))
+    assert response.status_code == 200
+    page = html(response)
+    trend = page.split('id="trend-h"')[1].split('id="records-h"')[0]
+    assert "could not be computed" not in page
+    assert "Not every window is shown: windows end every 2 records" in trend
+    assert trend.count('<td class="date">') == 2 * 40  # TREND_ROWS newest of 2,501 windows
+    assert "2461 earlier windows not listed." in trend

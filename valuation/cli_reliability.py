@@ -25,8 +25,12 @@ from valuation.errors import ModelValidationError, Problem, ValuationError
 from valuation.records_csv import read_records_csv
 from valuation.reliability import (
     DEFAULT_PRIOR_STRENGTH,
+    MAX_PRIOR_STRENGTH,
+    MAX_ROLLING_CELLS,
     MAX_ROLLING_WINDOWS,
     calibrate,
+    least_step,
+    replace_non_finite,
     rolling,
     score_record,
     validate_likelihoods,
@@ -64,7 +68,8 @@ def add_parser(sub) -> None:
         type=float,
         default=DEFAULT_PRIOR_STRENGTH,
         metavar="N",
-        help=f"past studies per state the claim is worth (default {DEFAULT_PRIOR_STRENGTH:g})",
+        help=f"past studies per state the claim is worth (default {DEFAULT_PRIOR_STRENGTH:g}, "
+        f"at most {MAX_PRIOR_STRENGTH:,.0f})",
     )
     parser.add_argument(
         "--window", type=int, default=None, metavar="N", help="also report rolling windows of N records"
@@ -75,7 +80,8 @@ def add_parser(sub) -> None:
         default=None,
         metavar="K",
         help="with --window: records between window ends (default 1, or the least step "
-        f"that keeps to {MAX_ROLLING_WINDOWS:,} windows)",
+        f"that keeps to {MAX_ROLLING_WINDOWS:,} windows and {MAX_ROLLING_CELLS:,} cells, "
+        "windows x states x signals)",
     )
     parser.add_argument(
         "--prior",
@@ -119,18 +125,6 @@ def load_json_mapping(path: str) -> Any:
         raise ValuationError(f"{path}: {exc}") from None
 
 
-def _finite(value: Any, notes: list[str], where: str = "") -> Any:
-    """Replace non-finite floats by None (JSON has no infinity) and say where."""
-    if isinstance(value, float) and not math.isfinite(value):
-        notes.append(where)
-        return None
-    if isinstance(value, dict):
-        return {k: _finite(v, notes, f"{where}.{k}" if where else k) for k, v in value.items()}
-    if isinstance(value, list):
-        return [_finite(v, notes, f"{where}[{i}]") for i, v in enumerate(value)]
-    return value
-
-
 def _with_file(path: str, problems: list[Problem]) -> list[str]:
     return [f"{path}: {p}" for p in problems]
 
@@ -139,13 +133,19 @@ def _compute(args) -> dict[str, Any]:
     strength = args.prior_strength
     if not math.isfinite(strength) or strength <= 0:
         raise ValuationError(f"--prior-strength: must be a number greater than 0, got {strength:g}")
+    if strength > MAX_PRIOR_STRENGTH:
+        # The API's limit too (decisions.services.sources takes it from the core).
+        raise ValuationError(
+            f"--prior-strength: must be at most {MAX_PRIOR_STRENGTH:,.0f} past studies "
+            f"(a claim worth more is a typing mistake), got {strength:.10g}"
+        )
     if args.window is not None and args.window < 1:
         raise ValuationError(f"--window: must be a whole number of at least 1, got {args.window}")
     if args.step is not None and args.step < 1:
         raise ValuationError(f"--step: must be a whole number of at least 1, got {args.step}")
     claimed = load_json_mapping(args.claimed)
     try:
-        states, signals, _ = validate_likelihoods(claimed)
+        states, signals, _ = validate_likelihoods(claimed, every_signal_possible=True)
     except ModelValidationError as exc:
         raise _FileProblems(_with_file(args.claimed, exc.problems)) from None
     prior = load_json_mapping(args.prior) if args.prior else None
@@ -157,7 +157,7 @@ def _compute(args) -> dict[str, Any]:
         raise ValuationError(f"{args.records}: cannot read the file ({exc.strerror})") from None
     calibration = calibrate(claimed, records, prior_strength=strength)
     try:
-        scores = score_record(claimed, prior, records)
+        scores = score_record(claimed, prior, records, per_record=False)
     except ModelValidationError as exc:
         # Prior problems belong to the prior file; the rest (a signal the claim gives
         # probability 0 everywhere) to the records, counted from 0 in file order.
@@ -184,8 +184,8 @@ def _compute(args) -> dict[str, Any]:
     }
     if args.window is not None:
         step = args.step
-        if step is None:  # the least step that keeps the report to MAX_ROLLING_WINDOWS
-            step = max(1, -(-(len(records) - args.window + 1) // MAX_ROLLING_WINDOWS))
+        if step is None:  # the least step that keeps the report within the rolling limits
+            step = least_step(len(records), args.window, len(states) * len(signals))
         try:
             result["rolling"] = rolling(
                 claimed, records, window=args.window, step=step, prior_strength=strength, prior=prior
@@ -194,13 +194,9 @@ def _compute(args) -> dict[str, Any]:
             if [p.location for p in exc.problems] != ["step"]:
                 raise
             raise ValuationError("--step: " + exc.problems[0].message) from None
-    notes: list[str] = []
-    result = _finite(result, notes)
-    if notes:
-        result["non_finite"] = {
-            "fields": notes,
-            "meaning": "minus infinity: a state that came true had been given probability 0",
-        }
+    result, note = replace_non_finite(result)
+    if note:
+        result["non_finite"] = note
     return result
 
 
@@ -286,7 +282,7 @@ def render_text(result: dict[str, Any]) -> str:
         f"  Brier convention: {result['brier_convention']}",
     ]
     if "non_finite" in result:
-        out.append("  A log score is minus infinity: " + result["non_finite"]["meaning"] + ".")
+        out.append("  Figures shown as - are not finite: " + result["non_finite"]["meaning"] + ".")
     if result.get("floored_cells"):
         cells = ", ".join(f"{s} / {k}" for s, k in result["floored_cells"])
         out.append(f"  Claimed 0 read as almost never (prior pseudo-count 0.01): {cells}")

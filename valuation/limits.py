@@ -14,6 +14,7 @@ __all__ = [
     "MAX_ALTERNATIVES",
     "MAX_TABLE_CELLS",
     "MAX_SIGNALS",
+    "MAX_SOURCE_STATES",
     "MAX_STUDIES",
     "MAX_PROBLEMS_REPORTED",
     "MAX_NAME_LENGTH",
@@ -38,6 +39,13 @@ MAX_ALTERNATIVES = 5_000
 MAX_TABLE_CELLS = 5_000_000
 MAX_SIGNALS = 100
 MAX_STUDIES = 20
+#: A study source's claimed table (valuation.reliability) holds at most this many states, and
+#: at most MAX_SIGNALS signals. Every read of a source calibrates every cell, once overall and
+#: once per rolling window, so the work and the answer grow with states x signals: a
+#: 5,000-state claim took 48 s and 4.9 GB per read. A source judged on more than a hundred
+#: distinct outcomes is not a study a payoff table can use (its studies are meant to be read
+#: by people), so 100 leaves ample room; 100 x 100 = 10,000 cells at most.
+MAX_SOURCE_STATES = 100
 #: Validation stops listing problems after this many (and says how many more).
 MAX_PROBLEMS_REPORTED = 200
 #: Names, labels and ids are at most this many characters.

@@ -35,6 +35,19 @@ Choices (documented here because they change the figures)
     marginal Beta so skewed that its equal-tailed interval can exclude the
     mean (Beta(1, 0.01): mean 0.990, 5% quantile 0.994); read the interval,
     not the mean, for a "never" claim.
+``MAX_PRIOR_STRENGTH = 1,000,000``
+    A claim worth more than a million studies is a typing mistake, not a
+    belief; beyond about 1e15 the Beta quantiles of a claimed 1 lose all
+    precision (``scipy.stats.beta.ppf`` answers NaN, or a low bound above the
+    high one), so a larger strength is refused rather than reported as noise.
+A signal no state can give
+    A new claim whose signal has probability 0 in every state is refused
+    (:func:`validate_likelihoods` with ``every_signal_possible``): the source
+    could never report it if the claim were right, and a record of it would
+    leave nothing to score (Bayes' rule divides by its probability, 0), so
+    every later read would fail. The claim is refused once, rather than each
+    such record, so that one rule holds for the API, the web form and the
+    command line. A stored claim is still read without the rule.
 
 References
 ----------
@@ -63,28 +76,35 @@ from valuation.errors import ModelValidationError, Problem
 
 # The binary-forecast scores live in their own module and stay importable from here.
 from valuation.forecast_scores import brier_decomposition, brier_score, calibration_table, log_score
-from valuation.limits import PROBABILITY_SUM_TOLERANCE
+from valuation.limits import MAX_SIGNALS, MAX_SOURCE_STATES, PROBABILITY_SUM_TOLERANCE
 
 __all__ = [
     "DEFAULT_PRIOR_STRENGTH",
     "DEFAULT_WINDOW",
+    "MAX_PRIOR_STRENGTH",
+    "MAX_ROLLING_CELLS",
     "MAX_ROLLING_WINDOWS",
     "MIN_PRIOR_PARAMETER",
+    "NON_FINITE_MEANINGS",
     "ROW_SUM_TOLERANCE",
     "Record",
     "brier_decomposition",
     "brier_score",
     "calibrate",
     "calibration_table",
+    "least_step",
     "log_score",
     "parse_date",
     "parse_records",
+    "replace_non_finite",
     "rolling",
     "score_record",
     "validate_likelihoods",
 ]
 
 DEFAULT_PRIOR_STRENGTH = 10.0
+#: A claim worth more than a million studies is a typing mistake, not a belief (module notes).
+MAX_PRIOR_STRENGTH = 1_000_000.0
 MIN_PRIOR_PARAMETER = 0.01
 ROW_SUM_TOLERANCE = PROBABILITY_SUM_TOLERANCE  # 1e-6, the core's one tolerance
 # Ten records: few enough that a change of the last two or three years shows, enough that
@@ -94,6 +114,12 @@ DEFAULT_WINDOW = 10
 #: :func:`rolling` refuses to build more windows than this (each is a full report; 5,000
 #: windows take about a second); a larger ``step`` thins them.
 MAX_ROLLING_WINDOWS = 5_000
+#: ... nor more cells than this, counted as windows x states x signals: each cell is a block of
+#: seven figures, about 210 bytes of JSON (measured: 100,000 cells made a 21 MB answer, built
+#: in about 1.3 s), so a claim of many states and signals gets fewer windows. 5,000 windows
+#: of a 2 x 2 claim are 20,000 cells; the limit lets a 10 x 10 claim keep 500 windows and the
+#: largest claim (100 x 100, valuation.limits) 5.
+MAX_ROLLING_CELLS = 50_000
 
 # ASCII digits only: \d would also match other scripts' digits.
 _ISO_DATE = re.compile(r"[0-9]{4}-[0-9]{2}-[0-9]{2}")
@@ -122,7 +148,7 @@ def _is_number(value: Any) -> bool:
 
 
 def validate_likelihoods(
-    table: Any, *, name: str = "claimed"
+    table: Any, *, name: str = "claimed", every_signal_possible: bool = False
 ) -> tuple[list[str], list[str], np.ndarray]:
     """Check a likelihood table ``state -> signal -> P(signal | state)``.
 
@@ -132,6 +158,11 @@ def validate_likelihoods(
         One row per true state; every row lists the same signals.
     name : str
         Name of the table in problem locations (``claimed['hot']['yes']``).
+    every_signal_possible : bool, default False
+        Also refuse a signal with probability 0 in every state (module notes).
+        Entry points that accept a new claim (creating a source, the command
+        line) ask for it; reads of a stored claim do not, so a source stored
+        before the rule stays readable.
 
     Returns
     -------
@@ -144,13 +175,21 @@ def validate_likelihoods(
     ------
     ModelValidationError
         With one problem per broken rule: not a mapping, fewer than one state
-        or two signals, a cell not a finite number within [0, 1], a row not
-        summing to 1 within ``ROW_SUM_TOLERANCE``, signals differing by row.
+        or two signals, more than ``MAX_SOURCE_STATES`` states or
+        ``MAX_SIGNALS`` signals, a cell not a finite number within [0, 1], a
+        row not summing to 1 within ``ROW_SUM_TOLERANCE``, signals differing
+        by row, and with ``every_signal_possible`` a signal with probability 0
+        in every state.
     """
     problems: list[Problem] = []
     if not isinstance(table, Mapping) or not table:
         raise ModelValidationError(
             [Problem(name, "must be a non-empty mapping of state -> signal -> probability")]
+        )
+    if len(table) > MAX_SOURCE_STATES:
+        # Refused before any row is read: the size limit exists to bound the work.
+        raise ModelValidationError(
+            [Problem(name, f"at most {MAX_SOURCE_STATES} states are allowed, got {len(table):,}")]
         )
     states = [str(s) for s in table]
     signals: list[str] | None = None
@@ -160,6 +199,11 @@ def validate_likelihoods(
             problems.append(Problem(where, "state names must be non-empty text"))
         if not isinstance(row, Mapping) or not row:
             problems.append(Problem(where, "must be a non-empty mapping of signal -> probability"))
+            continue
+        if len(row) > MAX_SIGNALS:
+            problems.append(
+                Problem(where, f"at most {MAX_SIGNALS} signals are allowed, got {len(row):,}")
+            )
             continue
         row_signals = [str(k) for k in row]
         if signals is None:
@@ -208,6 +252,19 @@ def validate_likelihoods(
         raise ModelValidationError(problems)
     assert signals is not None
     matrix = np.array([[float(table[s][k]) for k in signals] for s in table], dtype=float)
+    never = [k for j, k in enumerate(signals) if not matrix[:, j].any()]
+    if never and every_signal_possible:
+        raise ModelValidationError(
+            [
+                Problem(
+                    name,
+                    f"signal {k!r} has probability 0 in every state: no state could give it, "
+                    "and a record of it could not be scored; give it a probability above 0 "
+                    "in some state, or leave it out",
+                )
+                for k in never
+            ]
+        )
     return states, signals, matrix
 
 
@@ -329,6 +386,16 @@ def _check_prior_strength(prior_strength: Any) -> float:
     if float(prior_strength) <= 0:
         raise ModelValidationError(
             [Problem("prior_strength", f"must be greater than 0, got {prior_strength!r}")]
+        )
+    if float(prior_strength) > MAX_PRIOR_STRENGTH:
+        raise ModelValidationError(
+            [
+                Problem(
+                    "prior_strength",
+                    f"must be at most {MAX_PRIOR_STRENGTH:,.0f} past studies, "
+                    f"got {float(prior_strength):.10g}",
+                )
+            ]
         )
     return float(prior_strength)
 
@@ -633,6 +700,8 @@ def score_record(
     likelihoods: Mapping[str, Mapping[str, float]],
     prior: Mapping[str, float] | None,
     records: Iterable[Any],
+    *,
+    per_record: bool = True,
 ) -> dict[str, Any]:
     """Score a source's track record as probability forecasts of the true state.
 
@@ -650,6 +719,10 @@ def score_record(
         ``prior_source``.
     records : iterable
         Past studies (see :func:`parse_records`).
+    per_record : bool, default True
+        False leaves out ``per_record``, a dict per record with a posterior
+        over every state: the bulk of the work on a long record, wasted when
+        only the means are wanted.
 
     Returns
     -------
@@ -688,11 +761,27 @@ def score_record(
     prior_vec, source = _check_prior(prior, states)
     recs = parse_records(records, states, signals)
     sc = _record_scores(matrix, prior_vec, states, signals, recs)
+    out = {
+        "records": len(recs),
+        "prior": {s: float(prior_vec[i]) for i, s in enumerate(states)},
+        "prior_source": source,
+        "hit_rate": _mean_or_none(sc["hit"]),
+        "brier": _mean_or_none(sc["brier"]),
+        "brier_all_categories": _mean_or_none(sc["all_cat"]),
+        "brier_convention": BRIER_CONVENTION_TWO if len(states) == 2 else BRIER_CONVENTION_MANY,
+        "log_score": _mean_or_none(sc["log"]),
+    }
+    if per_record:
+        out["per_record"] = _per_record(states, recs, sc)
+    return out
+
+
+def _per_record(states: list[str], recs: Sequence[Record], sc: dict[str, np.ndarray]) -> list:
     # Plain lists first: indexing numpy arrays scalar by scalar is slow on big records.
     post, p_true, hit, brier, logs = (
         sc[k].tolist() for k in ("post", "p_true", "hit", "brier", "log")
     )
-    per_record = [
+    return [
         {
             "date": r.date.isoformat(),
             "signal": r.signal,
@@ -705,23 +794,69 @@ def score_record(
         }
         for n, r in enumerate(recs)
     ]
-    return {
-        "records": len(recs),
-        "prior": {s: float(prior_vec[i]) for i, s in enumerate(states)},
-        "prior_source": source,
-        "hit_rate": _mean_or_none(sc["hit"]),
-        "brier": _mean_or_none(sc["brier"]),
-        "brier_all_categories": _mean_or_none(sc["all_cat"]),
-        "brier_convention": BRIER_CONVENTION_TWO if len(states) == 2 else BRIER_CONVENTION_MANY,
-        "log_score": _mean_or_none(sc["log"]),
-        "per_record": per_record,
-    }
 
 
 
 # ---------------------------------------------------------------------------
 # Trend
 # ---------------------------------------------------------------------------
+
+
+def least_step(n_records: int, window: int, n_cells: int) -> int:
+    """The least step between window ends that keeps :func:`rolling` within
+    ``MAX_ROLLING_WINDOWS`` windows and ``MAX_ROLLING_CELLS`` cells.
+
+    ``n_cells`` is the claim's states x signals. With step ``k`` there are
+    ``ceil((n_records - window + 1) / k)`` windows, so the least step is the
+    ceiling of that span over the number of windows allowed.
+    """
+    allowed = max(1, min(MAX_ROLLING_WINDOWS, MAX_ROLLING_CELLS // max(1, n_cells)))
+    span = n_records - window + 1
+    return max(1, -(-span // allowed))
+
+
+def _check_window_count(n: int, window: int, step: int, n_cells: int) -> None:
+    n_windows = (n - window) // step + 1
+    least = least_step(n, window, n_cells)
+    if n_windows > MAX_ROLLING_WINDOWS:
+        message = (
+            f"{n_windows:,} windows of {window} records is more than "
+            f"{MAX_ROLLING_WINDOWS:,}; use a step of at least {least}"
+        )
+    elif n_windows * n_cells > MAX_ROLLING_CELLS:
+        message = (
+            f"{n_windows:,} windows of {n_cells:,} cells (states x signals) is "
+            f"{n_windows * n_cells:,} cells, more than {MAX_ROLLING_CELLS:,}; "
+            f"use a step of at least {least}"
+        )
+    else:
+        return
+    raise ModelValidationError([Problem("step", message)])
+
+
+def _window_counts(
+    recs: Sequence[Record], states: list[str], signals: list[str], ends: np.ndarray, window: int
+) -> np.ndarray:
+    """Counts ``[window, state, signal]`` of the records ``ends - window`` to ``ends``.
+
+    Cumulative counts are taken only at the window boundaries, not after every
+    record: memory grows with windows x cells (bounded by ``MAX_ROLLING_CELLS``)
+    instead of records x cells, which a long record of a large claim made gigabytes.
+    """
+    n_cells = len(states) * len(signals)
+    si = {s: i for i, s in enumerate(states)}
+    ki = {k: j for j, k in enumerate(signals)}
+    cell = np.array([si[r.state] * len(signals) + ki[r.signal] for r in recs], dtype=np.int64)
+    bounds = np.unique(np.concatenate([ends - window, ends]))
+    # Record t counts towards the prefix ending at bounds[j] when t < bounds[j]: group the
+    # records by the first boundary above them, count each group, add the groups up.
+    group = np.searchsorted(bounds, np.arange(len(recs)), side="right")
+    groups = np.bincount(group * n_cells + cell, minlength=(len(bounds) + 1) * n_cells)
+    prefix = np.cumsum(groups.reshape(len(bounds) + 1, n_cells), axis=0).astype(float)
+    at = {int(b): j for j, b in enumerate(bounds.tolist())}
+    upper = prefix[[at[int(e)] for e in ends.tolist()]]
+    lower = prefix[[at[int(e) - window] for e in ends.tolist()]]
+    return (upper - lower).reshape(len(ends), len(states), len(signals))
 
 
 def rolling(
@@ -755,7 +890,9 @@ def rolling(
         Records per window, at least 1.
     step : int, default 1
         Records between consecutive window ends, at least 1; at most
-        ``MAX_ROLLING_WINDOWS`` windows are built.
+        ``MAX_ROLLING_WINDOWS`` windows and ``MAX_ROLLING_CELLS`` cells
+        (windows x states x signals) are built. :func:`least_step` gives the
+        least step that keeps within both.
     prior : mapping or None
         Prior over states for the scores; None means uniform.
 
@@ -789,26 +926,9 @@ def rolling(
     }
     if n < window:
         return out
-    n_windows = (n - window) // step + 1
-    if n_windows > MAX_ROLLING_WINDOWS:
-        least = -(-(n - window + 1) // MAX_ROLLING_WINDOWS)
-        raise ModelValidationError(
-            [
-                Problem(
-                    "step",
-                    f"{n_windows:,} windows of {window} records is more than "
-                    f"{MAX_ROLLING_WINDOWS:,}; use a step of at least {least}",
-                )
-            ]
-        )
-    si = {s: i for i, s in enumerate(states)}
-    ki = {k: j for j, k in enumerate(signals)}
-    cells = np.zeros((n + 1, len(states), len(signals)))
-    for t, r in enumerate(recs):
-        cells[t + 1, si[r.state], ki[r.signal]] = 1.0
-    cum = np.cumsum(cells, axis=0)
+    _check_window_count(n, int(window), int(step), matrix.size)
     ends = np.arange(n, window - 1, -int(step))[::-1]
-    counts = cum[ends] - cum[ends - window]
+    counts = _window_counts(recs, states, signals, ends, int(window))
     arrays = _posterior_arrays(matrix, counts, strength, mass)
     sc = _record_scores(matrix, prior_vec, states, signals, recs)
 
@@ -839,3 +959,56 @@ def rolling(
             }
         )
     return out
+
+
+# ---------------------------------------------------------------------------
+# Reports as JSON
+# ---------------------------------------------------------------------------
+
+#: Why a figure of a report is not finite, by kind. Only minus infinity is expected (a log
+#: score when a state that came true had been given probability 0); the others would be a
+#: defect, and are told apart so that a note never gives the wrong reason.
+NON_FINITE_MEANINGS = {
+    "-inf": "minus infinity: a state that came true had been given probability 0",
+    "nan": "not a number: the figure could not be computed from these inputs (a defect; "
+    "please report it with the inputs)",
+    "inf": "plus infinity: the figure overflowed (a defect; please report it with the inputs)",
+}
+
+
+def _kind(value: float) -> str:
+    if math.isnan(value):
+        return "nan"
+    return "-inf" if value < 0 else "inf"
+
+
+def _replace(value: Any, where: str, found: dict[str, list[str]]) -> Any:
+    if isinstance(value, float) and not math.isfinite(value):
+        found.setdefault(_kind(value), []).append(where)
+        return None
+    if isinstance(value, dict):
+        return {k: _replace(v, f"{where}.{k}" if where else str(k), found) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_replace(v, f"{where}[{i}]", found) for i, v in enumerate(value)]
+    return value
+
+
+def replace_non_finite(report: Any) -> tuple[Any, dict[str, Any] | None]:
+    """A copy of ``report`` with every non-finite float replaced by None, and a note.
+
+    JSON has no infinity (RFC 8259, sec. 6), so the API and ``--json`` answer
+    null where a figure is not finite, and say why in the note:
+    ``{"fields": [paths], "meaning": text, "kinds": {"-inf": [paths], ...}}``
+    (``meaning`` from :data:`NON_FINITE_MEANINGS`, one clause per kind found).
+    The note is None when every figure is finite.
+    """
+    found: dict[str, list[str]] = {}
+    clean = _replace(report, "", found)
+    if not found:
+        return clean, None
+    kinds = {kind: found[kind] for kind in NON_FINITE_MEANINGS if kind in found}
+    return clean, {
+        "fields": [path for paths in kinds.values() for path in paths],
+        "meaning": "; ".join(NON_FINITE_MEANINGS[kind] for kind in kinds),
+        "kinds": kinds,
+    }

@@ -32,9 +32,14 @@ from valuation.records_csv import MAX_BYTES, read_records_csv
 from valuation.reliability import (
     DEFAULT_PRIOR_STRENGTH,
     DEFAULT_WINDOW,
+    MAX_PRIOR_STRENGTH,
+    MAX_ROLLING_CELLS,
+    MAX_ROLLING_WINDOWS,
     Record,
     calibrate,
+    least_step,
     parse_records,
+    replace_non_finite,
     rolling,
     score_record,
     validate_likelihoods,
@@ -56,8 +61,8 @@ __all__ = [
 ]
 
 ACCURACY_MODES = ("claimed", "calibrated")
-#: A claim worth more than a million studies is a typing mistake, not a belief.
-MAX_PRIOR_STRENGTH = 1_000_000.0
+# MAX_PRIOR_STRENGTH (a claim worth more than a million studies is a typing mistake) is the
+# core's, so the API and the command line refuse the same strengths.
 _WRITERS = (Role.ANALYST.value,)
 # Save a version: the same roles as the register's own save_version.
 _AUTHORS = tuple(r.value for r in (Role.ANALYST, Role.FINANCIAL_REVIEW, Role.OPERATIONS,
@@ -99,21 +104,37 @@ def calibration(source: StudySource, *, window: int = DEFAULT_WINDOW, interval: 
     the claim forecast what came true), ``scores.calibrated`` with the
     posterior means. ``prior`` is the prior over states for the scores (None:
     uniform, said in ``prior_source``).
+
+    The trend's windows end every ``trend.step`` records: 1, or the least step
+    that keeps within the core's rolling limits (``trend.step_note`` says so).
+    The answer is JSON-safe: a figure that is not finite (the log score when a
+    state that came true had been given probability 0) is None, and
+    ``non_finite`` says which and why (:func:`valuation.reliability.replace_non_finite`).
     """
     records = records_of(source)
+    step = least_step(len(records), window, len(source.states) * len(source.signals))
     try:
         cal = calibrate(source.claimed, records, prior_strength=source.prior_strength,
                         interval=interval)
-        scores = {"claimed": score_record(source.claimed, prior, records),
-                  "calibrated": score_record(cal["calibrated_likelihoods"], prior, records)}
-        trend = rolling(source.claimed, records, window=window,
+        # The record list is its own endpoint: no per-record scores here.
+        scores = {"claimed": score_record(source.claimed, prior, records, per_record=False),
+                  "calibrated": score_record(cal["calibrated_likelihoods"], prior, records,
+                                             per_record=False)}
+        trend = rolling(source.claimed, records, window=window, step=step,
                         prior_strength=source.prior_strength, interval=interval, prior=prior)
     except ModelValidationError as exc:
         raise _invalid(exc) from None
-    for block in scores.values():
-        block.pop("per_record", None)  # the record list is its own endpoint
-    return {"calibration": cal, "scores": scores, "trend": trend,
-            "last_record": records[-1].date.isoformat() if records else None}
+    if step > 1:
+        trend["step_note"] = (
+            f"windows end every {step} records, the least step that keeps the trend within "
+            f"{MAX_ROLLING_WINDOWS:,} windows and {MAX_ROLLING_CELLS:,} cells (windows x "
+            f"states x signals; step 1 would make {len(records) - window + 1:,} windows)")
+    out, note = replace_non_finite({"calibration": cal, "scores": scores, "trend": trend,
+                                    "last_record": records[-1].date.isoformat() if records
+                                    else None})
+    if note:
+        out["non_finite"] = note
+    return out
 
 
 # ---- sources and records ------------------------------------------------------------------
@@ -125,7 +146,8 @@ def _clean_prior_strength(value: Any) -> float:
         raise InvalidInput(f"must be a number, got {value!r}", location="prior_strength")
     value = float(value)
     if not 0 < value <= MAX_PRIOR_STRENGTH:
-        raise InvalidInput(f"must be within (0, {MAX_PRIOR_STRENGTH:,.0f}], got {value:g}",
+        # .10g: a value just over the limit must not print as the limit itself (1e+06).
+        raise InvalidInput(f"must be within (0, {MAX_PRIOR_STRENGTH:,.0f}], got {value:.10g}",
                            location="prior_strength")
     return value
 
@@ -135,7 +157,12 @@ def create_source(*, actor, team, name: str, claimed: Any,
     """A new study source of ``team`` (an analyst's act).
 
     States and signals are read from the claimed table (``state -> signal ->
-    P(signal | state)``), which the core validates.
+    P(signal | state)``), which the core validates: at most ``MAX_SOURCE_STATES``
+    states and ``MAX_SIGNALS`` signals (valuation.limits), and every signal
+    possible in some state. That last rule is why no record can later make the
+    source unreadable: a record of a signal the claim gives probability 0 in
+    every state could not be scored, so such a claim is refused here, once,
+    instead of its records one by one.
     """
     team_id = getattr(team, "pk", team)
     require_role(actor, team_id, _WRITERS, "create a study source")
@@ -146,7 +173,8 @@ def create_source(*, actor, team, name: str, claimed: Any,
     elif len(name) > 200:
         problems.append(("name", f"must be at most 200 characters, got {len(name)}"))
     try:
-        states, signals, _ = validate_likelihoods(claimed, name="claimed")
+        states, signals, _ = validate_likelihoods(claimed, name="claimed",
+                                                  every_signal_possible=True)
     except ModelValidationError as exc:
         problems.extend((p.location, p.message) for p in exc.problems)
     try:

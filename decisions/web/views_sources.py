@@ -135,6 +135,8 @@ def _detail(request, source, *, record_form=None, upload_form=None, import_probl
                         "scores": score_rows(figures["scores"]),
                         "prior_source": figures["scores"]["claimed"].get("prior_source", ""),
                         "trend": trend, "trend_left_out": left_out,
+                        "trend_step_note": figures["trend"].get("step_note", ""),
+                        "non_finite": (figures.get("non_finite") or {}).get("meaning", ""),
                         "records_total": figures["calibration"]["records"],
                         "floored": figures["calibration"].get("floored_cells") or []})
     records = source.records.select_related("created_by", "decision").order_by("-date", "-id")

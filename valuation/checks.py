@@ -7,12 +7,14 @@ fixes a document in one round instead of one error at a time.
 from __future__ import annotations
 
 import math
+import re
 from typing import Any
 
 from valuation.errors import ModelValidationError, Problem
 from valuation.limits import AMOUNT_TOTAL_LIMIT, MAX_NAME_LENGTH, MAX_PROBLEMS_REPORTED
 
-__all__ = ["Problems", "is_number", "describe", "amount_total_message", "total_text"]
+__all__ = ["CONTROL_CHARACTERS", "XML_ILLEGAL_CONTROLS", "Problems", "amount_total_message",
+           "control_character", "describe", "is_number", "total_text"]
 
 
 def is_number(value: Any) -> bool:
@@ -41,8 +43,37 @@ def amount_total_message(amounts: str, total: float) -> str:
             "is the largest")
 
 
+#: C0 control characters (U+0000 to U+001F): none belongs in a one-line title.
+CONTROL_CHARACTERS = re.compile("[\x00-\x1f]")
+#: The C0 control characters XML 1.0 does not allow (all but tab, LF and CR): a name
+#: holding one could not be drawn in an SVG. Names in model documents are held to this
+#: rule rather than the one above because tab, LF and CR were accepted in names before,
+#: and stored model versions are read again by the same rules. ``flattree._names_ok``
+#: applies it to a column of names.
+XML_ILLEGAL_CONTROLS = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f]")
+
+
+def control_character(text: str, *, line_breaks_allowed: bool = False) -> str:
+    """The rule broken if ``text`` holds a control character it may not, else ``""``.
+
+    ``line_breaks_allowed``: tab, line feed and carriage return are let through (names
+    in model documents), and only the XML-illegal controls are refused.
+    """
+    pattern = XML_ILLEGAL_CONTROLS if line_breaks_allowed else CONTROL_CHARACTERS
+    found = pattern.search(text)
+    if not found:
+        return ""
+    which = ("(U+0000 to U+001F other than tab, line feed and carriage return)"
+             if line_breaks_allowed else "(U+0000 to U+001F)")
+    return (f"must not contain control characters {which}, found "
+            f"U+{ord(found.group()):04X} at position {found.start() + 1}")
+
+
 class Problems:
     """Collects located problems, up to a cap, and raises them together."""
+
+    #: The control-character rule of :meth:`name`, for readers that check names in bulk.
+    CONTROL_CHARACTERS = XML_ILLEGAL_CONTROLS
 
     def __init__(self) -> None:
         self.items: list[Problem] = []
@@ -74,8 +105,9 @@ class Problems:
         if len(value) > MAX_NAME_LENGTH:
             self.add(location, f"{what} must be at most {MAX_NAME_LENGTH} characters long")
             return False
-        if "\x00" in value:
-            self.add(location, f"{what} must not contain the NUL character")
+        bad = control_character(value, line_breaks_allowed=True)
+        if bad:
+            self.add(location, f"{what} {bad}")
             return False
         return True
 

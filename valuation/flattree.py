@@ -287,14 +287,16 @@ def _largest_amount(payoff, cash, parent, first) -> str:
 
 
 def _names_ok(values: list) -> bool:
-    """``Problems.name`` over a column: non-blank str, at most MAX_NAME_LENGTH, no NUL."""
+    """``Problems.name`` over a column: non-blank str, at most MAX_NAME_LENGTH, no control
+    character XML refuses (``checks.XML_ILLEGAL_CONTROLS``)."""
     if not values:
         return True
     if set(map(type, values)) != {str}:
         return False
     if "" in values or max(map(len, values)) > MAX_NAME_LENGTH:
         return False
-    return "\x00" not in "".join(values) and not any(map(str.isspace, values))
+    return (Problems.CONTROL_CHARACTERS.search("".join(values)) is None
+            and not any(map(str.isspace, values)))
 
 
 def _numbers(values: list) -> np.ndarray | None:

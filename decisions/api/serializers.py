@@ -178,6 +178,11 @@ class TeamSerializer(serializers.ModelSerializer):
 
 # ---- write shapes ------------------------------------------------------------------------
 
+#: Largest row id (a signed 64-bit integer): a larger one cannot even be looked up on
+#: SQLite (OverflowError), so it is refused as input instead.
+MAX_ROW_ID = 2**63 - 1
+
+
 def _policy_field():
     return serializers.DictField(
         child=serializers.IntegerField(), required=False,
@@ -185,7 +190,7 @@ def _policy_field():
 
 
 class DecisionCreateSerializer(StrictSerializer):
-    team = serializers.IntegerField()
+    team = serializers.IntegerField(min_value=1, max_value=MAX_ROW_ID)
     title = serializers.CharField(max_length=200)
     policy = _policy_field()
 
@@ -246,7 +251,7 @@ class EvaluateSerializer(StrictSerializer):
 
 class DecisionFilterSerializer(serializers.Serializer):
     status = serializers.ChoiceField(choices=Status.values, required=False)
-    team = serializers.IntegerField(required=False)
+    team = serializers.IntegerField(required=False, min_value=1, max_value=MAX_ROW_ID)
     owner = serializers.CharField(required=False)
     created_after = serializers.DateField(required=False)
     created_before = serializers.DateField(required=False)

@@ -61,7 +61,7 @@ class OutcomeSerializer(serializers.ModelSerializer):
 
 
 class StudySourceCreateSerializer(StrictSerializer):
-    team = serializers.IntegerField()
+    team = serializers.IntegerField(min_value=1, max_value=2**63 - 1)  # a 64-bit row id
     name = serializers.CharField(max_length=200)
     claimed = serializers.JSONField(help_text="state -> signal -> claimed P(signal | state)")
     prior_strength = serializers.FloatField(required=False, allow_null=True)

@@ -83,9 +83,13 @@ class SourceListView(GenericAPIView):
         team = request.query_params.get("team")
         if team:
             try:
-                qs = qs.filter(team_id=int(team))
+                team_id = int(team)
             except ValueError:
                 raise InvalidInput(f"must be a team id, got {team!r}", location="team") from None
+            if not 1 <= team_id <= 2**63 - 1:  # beyond a 64-bit row id SQLite cannot look up
+                raise InvalidInput(f"must be a team id from 1 to {2**63 - 1}, got {team[:30]}"
+                                   f"{'…' if len(team) > 30 else ''}", location="team")
+            qs = qs.filter(team_id=team_id)
         page = self.paginate_queryset(qs.select_related("created_by").order_by("name", "id"))
         return self.get_paginated_response(ss.StudySourceSerializer(page, many=True).data)
 

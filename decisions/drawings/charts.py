@@ -14,6 +14,7 @@ and ``valuation.reliability``; nothing here reads the database.
 from __future__ import annotations
 
 import math
+import sys
 from collections.abc import Sequence
 
 from reportlab.graphics.shapes import Circle, Drawing, Line, PolyLine, Rect, String
@@ -46,23 +47,61 @@ __all__ = [
 SIZE = 7.0
 
 
+#: The largest finite double (IEEE 754); axis ends are held within it.
+_LARGEST = sys.float_info.max
+
+
+def _clamp(v: float) -> float:
+    return min(max(v, -_LARGEST), _LARGEST)
+
+
 def nice_ticks(lo: float, hi: float, count: int = 5) -> list[float]:
     """Round tick values covering [lo, hi]: steps of 1, 2 or 5 times a power of ten
-    (common practice for chart axes)."""
-    if not (math.isfinite(lo) and math.isfinite(hi)):
+    (common practice for chart axes).
+
+    Copes with any range a double can hold: the span is worked out from halves
+    (``hi - lo`` itself may exceed a double), powers of ten are floats (an integer
+    ``10 ** 300`` cannot be turned back into a float once multiplied up), ticks past
+    the largest double are held at it, and a range too narrow for round steps (a few
+    units in the last place) is given as its two ends. An infinite end is held at the
+    largest double; NaN gives ``[0.0]``.
+    """
+    if math.isnan(lo) or math.isnan(hi):
         return [0.0]
-    if hi < lo:
-        lo, hi = hi, lo
+    lo, hi = sorted((_clamp(float(lo)), _clamp(float(hi))))
     if hi == lo:
         pad = abs(lo) * 0.1 or 1.0
-        lo, hi = lo - pad, hi + pad
-    raw = (hi - lo) / max(count, 1)
-    power = 10 ** math.floor(math.log10(raw))
-    step = next(m * power for m in (1, 2, 5, 10) if m * power >= raw)
+        lo, hi = _clamp(lo - pad), _clamp(hi + pad)
+    count = max(count, 1)
+    raw = min((hi / 2 - lo / 2) / count * 2, _LARGEST)
+    if not raw > 1e-300:  # so narrow that 10 ** exponent would underflow
+        return [lo, hi]
+    exponent = math.floor(math.log10(raw))
+    multiple = next(m for m in (1, 2, 5, 10) if m * 10.0 ** exponent >= raw)
+    step = multiple * 10.0 ** exponent
+    if max(abs(lo), abs(hi)) / step > 2.0 ** 52:
+        return [lo, hi]  # a step below the doubles' resolution at lo and hi
     # integer multiples of the step, so no rounding error creeps in along the axis
     k0, k1 = math.floor(lo / step + 1e-9), math.ceil(hi / step - 1e-9)
-    ticks = [round(k * step, 12) for k in range(k0, k1 + 1)]
-    return ticks
+    ticks = sorted({_clamp(_decimal(k * multiple, exponent)) for k in range(k0, k1 + 1)})
+    return ticks if len(ticks) >= 2 else [lo, hi]
+
+
+def _decimal(digits: int, exponent: int) -> float:
+    """``digits * 10**exponent`` as the nearest double (0.3, not 0.30000000000000004;
+    1e300, not 9.999999999999999e+299): Python reads a decimal literal correctly
+    rounded, whereas a product with a power of ten rounds twice. Beyond the largest
+    double it reads as inf (the caller holds it at the largest double)."""
+    return float(f"{digits}e{exponent}")
+
+
+def _fraction(v: float, scale: tuple[float, float]) -> float:
+    """Where ``v`` lies along ``scale`` (0 at its low end, 1 at its high end).
+
+    From halves: an axis from -1e308 to 1e308 spans more than a double holds.
+    """
+    lo, hi = scale
+    return (float(v) / 2 - lo / 2) / ((hi / 2 - lo / 2) or 1.0)
 
 
 class _Axes:
@@ -74,12 +113,10 @@ class _Axes:
         self.xr, self.yr = xr, yr
 
     def x(self, v: float) -> float:
-        lo, hi = self.xr
-        return self.x0 + (v - lo) / ((hi - lo) or 1.0) * (self.x1 - self.x0)
+        return self.x0 + _fraction(v, self.xr) * (self.x1 - self.x0)
 
     def y(self, v: float) -> float:
-        lo, hi = self.yr
-        return self.y0 + (v - lo) / ((hi - lo) or 1.0) * (self.y1 - self.y0)
+        return self.y0 + _fraction(v, self.yr) * (self.y1 - self.y0)
 
     def x_axis(self, ticks, fmt, label: str = ""):
         for t in ticks:
@@ -114,6 +151,8 @@ def _title(d: Drawing, text: str) -> None:
 def _compact(v: float) -> str:
     """Axis labels: 1.2M, 350k, 0 (the table beside each chart gives exact figures)."""
     a = abs(v)
+    if a >= 1e15:
+        return f"{v:.3g}"
     if a >= 1e9:
         return f"{v / 1e9:.3g}bn"
     if a >= 1e6:

@@ -7,7 +7,10 @@ per drawing so that two charts on one page do not share a clip path. Text goes
 through the XML serializer, so ``<``, ``&`` and ``>`` in labels arrive escaped;
 elements or attributes that could run script (``script``, ``foreignObject``,
 ``on*`` handlers, ``javascript:`` links) are refused outright, though reportlab
-never writes them.
+never writes them. Characters XML does not allow at all (C0 controls other than
+tab, LF and CR; U+FFFE, U+FFFF; lone surrogates) are replaced by U+FFFD before
+parsing: reportlab copies label text as it is, and one such character in a
+stored title or name would otherwise make the XML unreadable and the page fail.
 """
 
 from __future__ import annotations
@@ -20,7 +23,7 @@ from reportlab.graphics import renderSVG
 from reportlab.graphics.shapes import Drawing
 from reportlab.platypus import Flowable
 
-__all__ = ["to_svg", "to_pdf_flowable", "UnsafeSvg"]
+__all__ = ["to_svg", "to_pdf_flowable", "xml_safe", "UnsafeSvg", "XML_ILLEGAL"]
 
 SVG_NS = "http://www.w3.org/2000/svg"
 XLINK_NS = "http://www.w3.org/1999/xlink"
@@ -28,6 +31,17 @@ ET.register_namespace("", SVG_NS)
 ET.register_namespace("xlink", XLINK_NS)
 
 _FORBIDDEN_TAGS = {"script", "foreignObject", "iframe", "object", "embed"}
+#: Characters outside XML 1.0's ``Char`` production (W3C XML 1.0, section 2.2): C0
+#: controls except tab, LF and CR; the surrogate range (only lone ones reach a str);
+#: U+FFFE and U+FFFF.
+XML_ILLEGAL = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ud800-\udfff\ufffe\uffff]")
+#: What stands in for such a character: the Unicode replacement character.
+REPLACEMENT = "\ufffd"
+
+
+def xml_safe(text: str) -> str:
+    """``text`` with every character XML forbids replaced by U+FFFD."""
+    return XML_ILLEGAL.sub(REPLACEMENT, text)
 
 
 class UnsafeSvg(ValueError):
@@ -45,7 +59,8 @@ def to_svg(drawing: Drawing, *, id_prefix: str | None = None, title: str = "") -
     drawing's content, so the same drawing always yields the same text). ``title``
     becomes the SVG's accessible title.
     """
-    raw = renderSVG.drawToString(drawing)
+    # Stored data (a title, a name, a claimed state) must never make the page fail.
+    raw = xml_safe(renderSVG.drawToString(drawing))
     # Our own renderer's output, with its prolog cut off: no DOCTYPE, hence no entity
     # declarations to expand (the attack S314 warns of). Malformed output raises here
     # rather than reaching a page.
@@ -85,7 +100,7 @@ def to_svg(drawing: Drawing, *, id_prefix: str | None = None, title: str = "") -
                                   "font-family: Helvetica, Arial, sans-serif;")
             el.attrib["style"] = style
         if _local(el.tag) == "title":
-            el.text = title
+            el.text = xml_safe(title)
         elif _local(el.tag) == "desc":
             el.text = ""
     root.set("role", "img")

@@ -30,9 +30,12 @@ from decisions.services.errors import ConflictError, InvalidInput, NotFoundError
 from decisions.services.evaluation import prepare_document
 from decisions.services.locking import lock_decision
 from valuation.canonical import sha256_hex
+from valuation.checks import control_character
+from valuation.limits import AMOUNT_TOTAL_LIMIT
 
 __all__ = [
     "MAX_SIGNERS_PER_ROLE",
+    "clean_amount",
     "close_decision",
     "commit_decision",
     "create_decision",
@@ -87,16 +90,26 @@ def _write_policy(decision: Decision, requirements: dict[str, int], now) -> Sign
     return policy
 
 
-def create_decision(*, actor, team: Team | int, title: str,
-                    policy: dict[str, int] | None = None) -> Decision:
-    """A new draft decision owned by ``actor`` (an analyst of ``team``)."""
-    team_id = team.pk if isinstance(team, Team) else team
-    require_role(actor, team_id, _EDITORS, "create a decision")
+def _clean_title(title: str | None) -> str:
+    """A decision's title: one line of at most 200 characters, no control characters
+    (the title is drawn in SVG charts, where most of them are not even allowed)."""
     title = (title or "").strip()
     if not title:
         raise InvalidInput("must not be blank", location="title")
     if len(title) > 200:
         raise InvalidInput(f"must be at most 200 characters, got {len(title)}", location="title")
+    bad = control_character(title)
+    if bad:
+        raise InvalidInput(bad, location="title")
+    return title
+
+
+def create_decision(*, actor, team: Team | int, title: str,
+                    policy: dict[str, int] | None = None) -> Decision:
+    """A new draft decision owned by ``actor`` (an analyst of ``team``)."""
+    team_id = team.pk if isinstance(team, Team) else team
+    require_role(actor, team_id, _EDITORS, "create a decision")
+    title = _clean_title(title)
     requirements = _clean_policy(policy or {}, "policy")
     now = timezone.now()
     with transaction.atomic():
@@ -122,12 +135,7 @@ def update_decision(decision_id, *, actor, if_match: str | None, title: str | No
         if decision.status == Status.CLOSED:
             raise ConflictError("decision: a closed decision cannot be edited", location="status")
         if title is not None:
-            title = title.strip()
-            if not title:
-                raise InvalidInput("must not be blank", location="title")
-            if len(title) > 200:
-                raise InvalidInput(f"must be at most 200 characters, got {len(title)}",
-                                   location="title")
+            title = _clean_title(title)
             if title != decision.title:
                 changes["title"] = [decision.title, title]
                 decision.title = title
@@ -244,6 +252,32 @@ def submit_version(decision_id, *, actor, if_match: str | None) -> Decision:
     return decision
 
 
+def clean_amount(value: Any, location: str, meaning: str) -> float:
+    """A finite number less than ``AMOUNT_TOTAL_LIMIT`` in absolute value, as a float.
+
+    The core holds a model's amounts to that limit; amounts entered beside a model
+    (an outcome's realised value, the value given up by a plan of the team's own)
+    are held to it too, so that the sums, differences and chart axes built from
+    them stay within a double. An integer beyond a double's range counts as not finite.
+    """
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise InvalidInput(f"must be a finite number ({meaning}), got {value!r}",
+                           location=location)
+    try:
+        number = float(value)
+    except OverflowError:
+        number = math.inf
+    if not math.isfinite(number):
+        shown = value if isinstance(value, float) else "an integer beyond 1.8e308"
+        raise InvalidInput(f"must be a finite number ({meaning}), got {shown}",
+                           location=location)
+    if abs(number) >= AMOUNT_TOTAL_LIMIT:
+        raise InvalidInput(f"must be less than {AMOUNT_TOTAL_LIMIT:g} in absolute value, so "
+                           f"that totals and differences stay within a double, got {number:g}",
+                           location=location)
+    return number
+
+
 def _value_given_up(results: dict, alternative: str) -> float | None:
     """Expected value forgone by picking ``alternative`` instead of the recommended plan."""
     for alt in results.get("alternatives") or []:
@@ -252,6 +286,19 @@ def _value_given_up(results: dict, alternative: str) -> float | None:
             gap = best - chosen if results.get("objective", "max") == "max" else chosen - best
             return max(gap, 0.0)
     return None
+
+
+def _entered_given_up(value: Any, problems: list) -> float | None:
+    """The value given up as the client entered it; None, with the problem added, if bad."""
+    try:
+        number = clean_amount(value, "value_given_up", "expected value given up")
+    except InvalidInput as exc:
+        problems.extend(exc.problems)
+        return None
+    if number < 0:
+        problems.append(("value_given_up", f"must be a finite number >= 0, got {number}"))
+        return None
+    return number
 
 
 def record_strategy(decision_id, *, actor, if_match: str | None, recommended: bool,
@@ -295,11 +342,8 @@ def record_strategy(decision_id, *, actor, if_match: str | None, recommended: bo
                     if not problems:
                         problems.append(("value_given_up", "is required for a plan that is not "
                                                            "one of the model's alternatives"))
-                elif not math.isfinite(value_given_up) or value_given_up < 0:
-                    problems.append(("value_given_up",
-                                     f"must be a finite number >= 0, got {value_given_up}"))
                 else:
-                    given_up = float(value_given_up)
+                    given_up = _entered_given_up(value_given_up, problems)
             if problems:
                 raise InvalidInput(problems=problems)
             plan = {"source": "team", "alternative": alternative or None, "text": plan_text}

@@ -49,7 +49,7 @@ from decisions.models import (
 )
 from decisions.services.access import visible_decisions
 from decisions.services.audit import append_event
-from decisions.services.decisions import _touch
+from decisions.services.decisions import _touch, clean_amount
 from decisions.services.errors import ConflictError, InvalidInput, NotFoundError
 from decisions.services.locking import lock_decision
 from valuation.errors import ValuationError
@@ -192,10 +192,9 @@ def current_outcome(decision: Decision) -> Outcome | None:
 
 
 def _clean_value(value: Any) -> float:
-    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
-        raise InvalidInput(f"must be a finite number (money actually made or lost), got {value!r}",
-                           location="realised_value")
-    return float(value)
+    """The realised amount, held to the core's amount limit so that sums, differences and
+    chart axes built from it stay finite (the review and the portfolio add it up)."""
+    return clean_amount(value, "realised_value", "money actually made or lost")
 
 
 def _study_bought(doc: dict, steps: list[dict]) -> tuple[dict | None, str, str]:

@@ -20,6 +20,7 @@ table as in ``valuation.reliability.calibration_table`` (equal-width bins,
 from __future__ import annotations
 
 import datetime as dt
+import math
 from typing import Any
 
 import numpy as np
@@ -75,13 +76,7 @@ def portfolio(user, team, *, bins: int = DEFAULT_BINS, recent: int = 0) -> dict[
         expected=Sum("expected_value"), realised=Sum("realised_value"),
         mean_path_probability=Avg("path_probability"),
     ).order_by("currency"))
-    totals = [
-        {"currency": row["currency"], "decisions": row["decisions"],
-         "expected": row["expected"], "realised": row["realised"],
-         "realised_minus_expected": row["realised"] - row["expected"],
-         "mean_probability_of_what_happened": row["mean_path_probability"]}
-        for row in sums
-    ]
+    totals = [_total(row) for row in sums]
     # One GROUP BY over the forecasts, by distinct probability: every calibration
     # figure follows from (p, how many, how many happened), so the database reads
     # the forecast rows once instead of once per figure.
@@ -96,6 +91,32 @@ def portfolio(user, team, *, bins: int = DEFAULT_BINS, recent: int = 0) -> dict[
     if recent:
         out["recent"] = _recent(current, sums, recent)
     return out
+
+
+#: Said beside a total that a double cannot hold (reported as null, not as a 500).
+OVERFLOW_NOTE = ("a sum is beyond the largest number a double holds (about 1.8e308) and is "
+                 "given as null; amounts are held below 1e300 each, so only outcomes recorded "
+                 "before that rule (or some 1e8 outcomes near it) can cause this")
+
+
+def _total(row: dict[str, Any]) -> dict[str, Any]:
+    """One currency's sums, with any sum a double cannot hold as None and a note.
+
+    SQLite adds REAL values up to inf; JSON has no inf, so an unguarded total
+    would fail the whole answer.
+    """
+    expected, realised = _finite(row["expected"]), _finite(row["realised"])
+    difference = _finite(realised - expected) if None not in (expected, realised) else None
+    out = {"currency": row["currency"], "decisions": row["decisions"],
+           "expected": expected, "realised": realised, "realised_minus_expected": difference,
+           "mean_probability_of_what_happened": row["mean_path_probability"]}
+    if difference is None:
+        out["note"] = OVERFLOW_NOTE
+    return out
+
+
+def _finite(value: float | None) -> float | None:
+    return value if value is not None and math.isfinite(value) else None
 
 
 def _in_force(team_id: int):

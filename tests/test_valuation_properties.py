@@ -353,13 +353,16 @@ def test_certainty_equivalent_is_between_worst_and_expected_and_grows_with_toler
     # Common practice (Pratt 1964; Howard 1988): under exponential utility a risk averter's
     # CE lies between the worst outcome and the expected value, and falls as the risk
     # tolerance R falls; it tends to the expected value as R grows. "Within rounding":
-    # 1e-12 of the largest outcome.
+    # 1e-12 of the largest outcome, plus what the exponents (x - m) / R cannot hold once
+    # they fall below the smallest normal double: there their spacing is 2**-1074 (IEEE 754
+    # subnormals), so R * E[T] is known to about R * 2**-1074 only (seen at a spread of
+    # 1.7e-85 with R = 1e227).
     values, weights = lottery
     probs = [w / sum(weights) for w in weights]
     worst = min(v for v, p in zip(values, probs, strict=True) if p > 0)
     expected = sum(p * v for v, p in zip(values, probs, strict=True)) / sum(probs)
-    slack = 1e-12 * max(abs(v) for v in values)
     low, high = sorted((r1, r2))
+    slack = 1e-12 * max(abs(v) for v in values) + 4 * high * 2.0 ** -1074
     ce_low = certainty_equivalent(values, probs, low)
     ce_high = certainty_equivalent(values, probs, high)
     for ce in (ce_low, ce_high):

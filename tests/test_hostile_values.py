@@ -296,6 +296,24 @@ def test_a_portfolio_total_beyond_a_double_is_null_with_a_note(people, client_fo
     assert client_as(people.ana).get("/portfolio/").status_code == 200
 
 
+def test_the_sums_added_up_here_are_the_databases_sums(people):
+    # The fallback for PostgreSQL's refusal of an overflowing sum must give the same
+    # figures as the database's GROUP BY on ordinary data (the reference here).
+    for value in (1_250_000.0, -310_000.5):
+        record_outcome(committed(people).pk, actor=people.ana, if_match=IF_MATCH_ANY,
+                       path=GOOD_COLD, realised_value=value)
+    current = portfolio._in_force(people.team.pk)
+    by_database = portfolio._sums_per_currency(current)
+    by_hand = portfolio._sums_added_here(current)
+    assert [row["currency"] for row in by_hand] == [row["currency"] for row in by_database]
+    for ours, theirs in zip(by_hand, by_database, strict=True):
+        assert ours.keys() == theirs.keys()
+        for key in ("decisions", "outcomes"):
+            assert ours[key] == theirs[key]
+        for key in ("expected", "realised", "mean_path_probability"):
+            assert ours[key] == pytest.approx(theirs[key], rel=1e-12)
+
+
 # ---- 3. ids beyond 64 bits ----------------------------------------------------------------------
 
 TOO_BIG = [BIGGEST_ID + 1, 10**23, -(2**63) - 1, 0]

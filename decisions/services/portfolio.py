@@ -24,6 +24,7 @@ import math
 from typing import Any
 
 import numpy as np
+from django.db import DataError, transaction
 from django.db.models import Avg, Count, Exists, OuterRef, Sum
 
 from decisions.models import Outcome, OutcomeForecast, Role, StudyRecord, StudySource, Team
@@ -70,12 +71,7 @@ def portfolio(user, team, *, bins: int = DEFAULT_BINS, recent: int = 0) -> dict[
         raise InvalidInput(f"must be a whole number from 0 to {MAX_RECENT}, got {recent!r}",
                            location="recent")
     current = _in_force(team_id)
-    # Sums per currency: adding euros to pounds would be meaningless.
-    sums = list(current.values("currency").annotate(
-        decisions=Count("decision_id", distinct=True), outcomes=Count("id"),
-        expected=Sum("expected_value"), realised=Sum("realised_value"),
-        mean_path_probability=Avg("path_probability"),
-    ).order_by("currency"))
+    sums = _sums_per_currency(current)
     totals = [_total(row) for row in sums]
     # One GROUP BY over the forecasts, by distinct probability: every calibration
     # figure follows from (p, how many, how many happened), so the database reads
@@ -91,6 +87,48 @@ def portfolio(user, team, *, bins: int = DEFAULT_BINS, recent: int = 0) -> dict[
     if recent:
         out["recent"] = _recent(current, sums, recent)
     return out
+
+
+def _sums_per_currency(current) -> list[dict[str, Any]]:
+    """Counts and sums of the outcomes in force, per currency (adding euros to pounds
+    would be meaningless), by the database.
+
+    PostgreSQL refuses a sum of doubles beyond a double's range ("value out of range:
+    overflow") where SQLite gives inf. Then the same figures are added up here, where
+    such a sum is inf as on SQLite, and ``_total`` reports it as null with a note. The
+    query runs in a savepoint so that the refused statement leaves the request's
+    transaction usable.
+    """
+    try:
+        with transaction.atomic():
+            return list(current.values("currency").annotate(
+                decisions=Count("decision_id", distinct=True), outcomes=Count("id"),
+                expected=Sum("expected_value"), realised=Sum("realised_value"),
+                mean_path_probability=Avg("path_probability"),
+            ).order_by("currency"))
+    except DataError:
+        return _sums_added_here(current)
+
+
+def _sums_added_here(current) -> list[dict[str, Any]]:
+    """``_sums_per_currency``'s figures from the rows, one pass in currency order."""
+    rows = current.order_by("currency").values_list(
+        "currency", "decision_id", "expected_value", "realised_value", "path_probability")
+    sums: list[dict[str, Any]] = []
+    for currency, decision_id, expected, realised, probability in rows.iterator():
+        if not sums or sums[-1]["currency"] != currency:
+            sums.append({"currency": currency, "decision_ids": set(), "outcomes": 0,
+                         "expected": 0.0, "realised": 0.0, "probability_sum": 0.0})
+        row = sums[-1]
+        row["decision_ids"].add(decision_id)
+        row["outcomes"] += 1
+        row["expected"] += expected
+        row["realised"] += realised
+        row["probability_sum"] += probability
+    for row in sums:
+        row["decisions"] = len(row.pop("decision_ids"))
+        row["mean_path_probability"] = row.pop("probability_sum") / row["outcomes"]
+    return sums
 
 
 #: Said beside a total that a double cannot hold (reported as null, not as a 500).

@@ -25,6 +25,8 @@ def _post_raw(client, url, body: bytes, content_type="application/json"):
     (b'{"document": {"x\\u0000": 1}}', "body.document", "object keys must not contain U+0000"),
     (b"[" * 20000 + b"]" * 20000, "body", "must not nest deeper than 64 levels"),
     (b'{"a": "\xff"}', "body", "must be UTF-8 text (byte 7 is not)"),
+    (b'{"document": {"kind": "tree", "title": "a\\ud800b"}}', "body.document.title",
+     "must not contain an unpaired surrogate (U+D800); send Unicode text"),
     (b'{"a": ', "body", "is not valid JSON: Expecting value: line 1 column 7 (char 6)"),
 ])
 def test_hostile_json_is_refused_with_a_located_message(people, client_for, body, location,

@@ -429,3 +429,13 @@ def test_eight_first_requests_at_once_create_exactly_one_decision(people):
         assert verify_chain().ok
     finally:
         purge_register()
+
+
+def test_an_unpaired_surrogate_in_the_body_is_a_400_not_a_500_with_a_key(people, client_for):
+    # The body's hash (canonical JSON) could not be taken of it; the parser refuses it first.
+    response = client_for(people.ana).generic(
+        "POST", "/api/decisions/",
+        b'{"team": %d, "title": "ok", "policy": {"\\ud800": 1}}' % people.team.pk,
+        content_type="application/json", HTTP_IDEMPOTENCY_KEY='"k-surrogate"')
+    assert response.status_code == 400
+    assert response.json()["errors"][0]["location"] == "body.policy"

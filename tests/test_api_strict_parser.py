@@ -280,3 +280,40 @@ def test_an_ordinary_model_body_is_settled_by_the_orjson_reading():
     data = _orjson_parse(raw)
     assert data is not _UNSETTLED
     assert _typed(data) == _typed(json.loads(raw))
+
+
+@pytest.mark.parametrize(("raw", "location", "message"), [
+    (b'{"title": "a\\ud800b"}', "body.title",
+     "must not contain an unpaired surrogate (U+D800); send Unicode text"),
+    (b'{"a": ["ok", "\\udfff"]}', "body.a[1]",
+     "must not contain an unpaired surrogate (U+DFFF); send Unicode text"),
+    (b'{"policy": {"\\uDBFF": 1}}', "body.policy",
+     "object keys must not contain an unpaired surrogate (U+DBFF); send Unicode text"),
+])
+def test_unpaired_surrogates_are_refused_with_their_place(raw, location, message):
+    # PostgreSQL's jsonb refuses them and UTF-8 cannot carry them in an answer (the
+    # Unicode Standard, D75: a surrogate code point is not a scalar value).
+    with pytest.raises(BodyProblem) as caught:
+        parse_strict_json(raw)
+    assert (caught.value.location, str(caught.value.detail)) == (location, message)
+
+
+def test_a_surrogate_pair_is_one_character_and_accepted():
+    raw = b'{"title": "heat \\ud83d\\udd25 pump"}'
+    assert parse_strict_json(raw) == {"title": "heat \U0001f525 pump"} == json.loads(raw)
+
+
+def test_a_deep_body_of_many_values_is_settled_on_the_fast_path():
+    # A body 63 levels deep holding many short values is accepted on the fast path:
+    # the depth rule is a walk over the containers, which costs nothing per nesting
+    # level of text (an indented rewrite would repeat ~126 spaces per value).
+    from decisions.api.parsers import _UNSETTLED, _orjson_parse
+
+    raw = b"[" * 63 + b",".join([b"1"] * 10_000) + b"]" * 63
+    data = _orjson_parse(raw)
+    assert data is not _UNSETTLED
+    inner = data
+    for _ in range(62):
+        inner = inner[0]
+    assert inner == [1] * 10_000
+    assert _orjson_parse(b"[" * 65 + b"1" + b"]" * 65) is _UNSETTLED  # left to the other parse

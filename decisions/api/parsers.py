@@ -7,9 +7,10 @@
 - Nesting deeper than :data:`MAX_DEPTH` is refused: the parser's recursion guard
   stops pathological nesting (answered as this rule, not a 500), and a walk over
   the parsed containers enforces the limit itself.
-- NaN, Infinity, duplicate keys and the character U+0000 are refused: jsonb
-  keeps the last of duplicate keys and rejects U+0000, so the stored copy and
-  the hashed canonical text could otherwise disagree.
+- NaN, Infinity, duplicate keys, the character U+0000 and unpaired surrogates
+  (``\\ud800`` alone) are refused: jsonb keeps the last of duplicate keys and
+  rejects U+0000 and unpaired surrogates, so the stored copy and the hashed
+  canonical text could otherwise disagree (and no UTF-8 answer could carry them).
 
 A body is read first by orjson (``_orjson_parse``), which parses a model in half
 the standard library's time, and is taken from it only when every rule above is
@@ -22,6 +23,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 from itertools import chain
 
 import orjson
@@ -33,9 +35,7 @@ __all__ = ["MAX_DEPTH", "BodyProblem", "StrictJSONParser", "parse_strict_json"]
 
 MAX_DEPTH = 64
 _NUL_ESCAPE = "\\u0000"
-# In orjson's two-space indented text, a value inside MAX_DEPTH containers starts a
-# line with this (strings cannot hold a raw newline: orjson writes it as \\n).
-_AT_THE_DEPTH_LIMIT = b"\n" + b" " * (2 * MAX_DEPTH)
+_SURROGATE = re.compile("[\ud800-\udfff]")
 
 
 class BodyProblem(ParseError):
@@ -91,21 +91,30 @@ def _objects(data) -> list[dict]:
     return [item for found, _ in _levels(data) for item in found]
 
 
-def _check_nul(value, path: str = "body") -> None:
+def _check_text(value, path: str = "body") -> None:
+    """Refuse U+0000 and unpaired surrogates in keys and strings, naming the place."""
     # Iterative walk: the depth is already bounded, but a list may be long.
     stack = [(value, path)]
     while stack:
         item, where = stack.pop()
         if isinstance(item, str):
-            if "\x00" in item:
-                raise BodyProblem("must not contain the character U+0000", location=where)
+            _check_string(item, where, "must not contain")
         elif isinstance(item, dict):
             for key, sub in item.items():
-                if "\x00" in key:
-                    raise BodyProblem("object keys must not contain U+0000", location=where)
+                _check_string(key, where, "object keys must not contain")
                 stack.append((sub, f"{where}.{key}"))
         elif isinstance(item, list):
             stack.extend((sub, f"{where}[{i}]") for i, sub in enumerate(item))
+
+
+def _check_string(text: str, where: str, rule: str) -> None:
+    if "\x00" in text:
+        raise BodyProblem(f"{rule} the character U+0000" if rule == "must not contain"
+                          else f"{rule} U+0000", location=where)
+    found = _SURROGATE.search(text)
+    if found:
+        raise BodyProblem(f"{rule} an unpaired surrogate (U+{ord(found.group()):04X}); "
+                          f"send Unicode text", location=where)
 
 
 def _loads(text: str, *, checked: bool):
@@ -159,7 +168,7 @@ def parse_strict_json(raw: bytes):
     if data is _UNSETTLED:
         return _stdlib_parse(raw)
     if b"\\u0000" in raw:
-        _check_nul(data)
+        _check_text(data)
     return data
 
 
@@ -170,17 +179,15 @@ def _orjson_parse(raw: bytes):
     """The body parsed by orjson when that settles every rule, else ``_UNSETTLED``.
 
     orjson refuses, with the standard library's parse then naming the problem: text
-    that is not UTF-8 (and escaped lone surrogates), NaN and Infinity, a number beyond
-    a double, raw control characters in strings, nesting past its own limit. Three
-    rules are left, settled from the parsed value written back by orjson with an
-    indent (``written``), which takes a fraction of the parse:
+    that is not UTF-8, unpaired surrogates, NaN and Infinity, a number beyond a
+    double, raw control characters in strings, nesting past its own limit. Three
+    rules are left:
 
     - Integers beyond 64 bits, which orjson reads as floats where Python keeps them
       whole: such a float is at least 2**63 in size, and orjson writes every float
-      from 1e16 up with an exponent, ``e+``. A body whose written text has a ``+``
-      anywhere (such a number, or the sign in a string) is left to the other parse.
-    - Depth: a value inside MAX_DEPTH containers is indented 2 * MAX_DEPTH spaces, so
-      without such a line no container lies deeper than the limit.
+      from 1e16 up with an exponent, ``e+``. A body whose value, written back by
+      orjson (``written``, a fraction of the parse), has a ``+`` anywhere (such a
+      number, or the sign in a string) is left to the other parse.
     - Duplicate keys, which orjson reads as the last one: outside strings, a colon
       separates a key from its value, so the body's colons number its members plus
       the colons in its strings, and the written text's number the parsed entries plus
@@ -188,17 +195,32 @@ def _orjson_parse(raw: bytes):
       agree only when no key was repeated. A body that may escape a colon (any
       ``\\u003`` escape, such as ``\\u003a``) is left to the other parse, where the
       count allows for it.
+    - Depth, by a walk over the containers (``_deeper_than_the_limit``). Written
+      back with an indent, the text would show the depth without a walk, but a body
+      of deep, short lines would grow a hundredfold in memory.
     """
     try:
         data = orjson.loads(raw)
-        written = orjson.dumps(data, option=orjson.OPT_INDENT_2)
+        written = orjson.dumps(data)
     except (orjson.JSONDecodeError, orjson.JSONEncodeError):  # writing stops at 255 levels
         return _UNSETTLED
     # One-byte and rare searches first: each is a scan of the text at memory speed.
-    if (b"+" in written or b"\\u003" in raw or _AT_THE_DEPTH_LIMIT in written
-            or raw.count(b":") != written.count(b":")):
+    if (b"+" in written or b"\\u003" in raw or raw.count(b":") != written.count(b":")
+            or _deeper_than_the_limit(data)):
         return _UNSETTLED
     return data
+
+
+def _deeper_than_the_limit(data) -> bool:
+    """Whether a container of ``data`` lies inside MAX_DEPTH others (``_levels``'s rule),
+    looking at the containers only."""
+    level = [data] if type(data) is dict or type(data) is list else []
+    for _ in range(MAX_DEPTH):
+        level = [v for item in level for v in (item.values() if type(item) is dict else item)
+                 if type(v) is dict or type(v) is list]
+        if not level:
+            return False
+    return True
 
 
 def _stdlib_parse(raw: bytes):
@@ -216,9 +238,10 @@ def _stdlib_parse(raw: bytes):
         data = _loads(text, checked=True)
         _objects(data)  # the depth rule, after the rules the parse itself applies
     # JSON can carry U+0000 only as the escape \u0000 (a raw control character is
-    # refused by the parser), so a body without that text needs no walk.
-    if _NUL_ESCAPE in text:
-        _check_nul(data)
+    # refused by the parser), and an unpaired surrogate only as an escape \ud800 to
+    # \udfff (UTF-8 cannot encode one), so a body without such text needs no walk.
+    if _NUL_ESCAPE in text or "\\ud" in text or "\\uD" in text:
+        _check_text(data)
     return data
 
 

@@ -439,3 +439,28 @@ def test_an_unpaired_surrogate_in_the_body_is_a_400_not_a_500_with_a_key(people,
         content_type="application/json", HTTP_IDEMPOTENCY_KEY='"k-surrogate"')
     assert response.status_code == 400
     assert response.json()["errors"][0]["location"] == "body.policy"
+
+
+def test_another_integrity_failure_is_not_taken_for_a_key_conflict(people, monkeypatch):
+    # Only the (user, key) constraint means "another request has this key"; any other
+    # integrity failure inside the creation goes up as itself (a 500, logged), not a 409.
+    from django.db import IntegrityError
+
+    def broken(**kwargs):
+        raise IntegrityError("FOREIGN KEY constraint failed")
+
+    monkeypatch.setattr(idempotency, "create_decision", broken)
+    with pytest.raises(IntegrityError, match="FOREIGN KEY"):
+        idempotency.create_decision_once(actor=people.ana, key="k-other", body={"title": "t"},
+                                         team=people.team, title="t")
+
+
+@pytest.mark.parametrize("message", [
+    'duplicate key value violates unique constraint "idempotency_key_unique_per_user"',
+    "UNIQUE constraint failed: decisions_idempotencykey.user_id, decisions_idempotencykey.key",
+])
+def test_the_key_constraint_is_recognised_in_each_databases_words(message):
+    # PostgreSQL's and SQLite's messages for the unique constraint (as they word them).
+    from django.db import IntegrityError
+
+    assert idempotency._is_the_key_constraint(IntegrityError(message))

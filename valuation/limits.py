@@ -62,7 +62,9 @@ INFORMATION_NODE_LIMIT = 5_000
 #: table's study costs and its payoffs, counted as often as its equivalent tree holds them)
 #: must total less than this in absolute value. The total bounds every path total and
 #: expected value, a certainty equivalent (it lies between the worst outcome and the
-#: expected value) and the difference of two of them (EVPI, EVSI, a swing), so none of them
+#: expected value, to within PROBABILITY_SUM_TOLERANCE: it is taken over the probabilities
+#: scaled to sum to 1, see ``utility.log_expectation``, the expected value over them as
+#: given) and the difference of two of them (EVPI, EVSI, a swing), so none of them
 #: overflows a double (IEEE 754: largest finite value about 1.8e308, Python's
 #: ``sys.float_info.max``) and every number of a result document is finite, as JSON (the
 #: API, ``--json``) requires. The margin of over 1e8 leaves room for rounding, for

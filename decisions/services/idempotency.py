@@ -163,7 +163,9 @@ def create_decision_once(*, actor, key: str | None, body: Any, team: Team | int,
             decision = create_decision(actor=actor, team=team, title=title, policy=policy)
             IdempotencyKey.objects.create(user=actor, key=key, request_sha256=request_sha256,
                                           decision=decision, created_at=now)
-    except IntegrityError:
+    except IntegrityError as exc:
+        if not _is_the_key_constraint(exc):
+            raise  # another integrity failure: not this key's business, and not a conflict
         # The race: another request with this key committed its record between our
         # look-up and our insert (two first sends of one request, e.g. a client that
         # retried before the first answer came). The unique constraint on (user, key)
@@ -180,6 +182,16 @@ def create_decision_once(*, actor, key: str | None, body: Any, team: Team | int,
                 f"conflicted with this one; send it again shortly", location=KEY_HEADER) from None
         return _replay(found, actor, request_sha256)
     return Creation(decision, replayed=False)
+
+
+def _is_the_key_constraint(exc: IntegrityError) -> bool:
+    """Whether ``exc`` is the (user, key) unique constraint refusing our record.
+
+    PostgreSQL names the constraint; SQLite names the table and its columns.
+    """
+    text = str(exc)
+    return ("idempotency_key_unique_per_user" in text
+            or f"{IdempotencyKey._meta.db_table}.key" in text)
 
 
 def purge_expired(*, now: datetime | None = None) -> int:

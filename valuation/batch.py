@@ -26,7 +26,7 @@ from valuation.flattree import CHANCE, DECISION, END, FlatTree
 from valuation.limits import TIE_TOLERANCE
 from valuation.parameters import Parameter, rescale_row
 from valuation.table import PayoffTable
-from valuation.utility import log_expectations
+from valuation.utility import log_expectations, segment_certainty_equivalents
 
 __all__ = ["Setting", "BatchValues", "evaluate_batch", "plan_value", "plan_label", "first_choice_label"]
 
@@ -251,16 +251,8 @@ def _tree_batch(tree: FlatTree, prob, cash, payoff, r: float | None,
         bv = cash[:, a:b] + value[:, child]
         is_chance = tree.kind[parents] == CHANCE
         if r:
-            live = p > 0
-            m = np.minimum.reduceat(np.where(live, bv, np.inf), starts, axis=1)
-            with np.errstate(over="ignore", invalid="ignore"):
-                exponent = np.where(live, -(bv - m[:, seg]) / r, 0.0)
-            e = np.where(live, np.exp(exponent), 0.0)
-            d = np.where(live, np.expm1(exponent), 0.0)
             # Decision segments (no live branch) come out NaN here and take ``top`` below.
-            chance_value = m - r * log_expectations(np.add.reduceat(p, starts, axis=1),
-                                                    np.add.reduceat(p * e, starts, axis=1),
-                                                    np.add.reduceat(p * d, starts, axis=1))
+            chance_value = segment_certainty_equivalents(bv, p, starts, seg, r)
         else:
             chance_value = np.add.reduceat(p * bv, starts, axis=1)
         # Decision: the first branch (document order) within the tie tolerance of the best.

@@ -25,7 +25,7 @@ from valuation.flattree import (
     rollback,
     spans,
 )
-from valuation.utility import certainty_equivalent, log_expectations
+from valuation.utility import certainty_equivalent, segment_certainty_equivalents
 
 __all__ = [
     "plan_steps",
@@ -330,17 +330,9 @@ def _root_values(tree: FlatTree, prob_rows: np.ndarray, risk_tolerance=None) -> 
         bv = tree.cash[a:b][None, :] + value[:, tree.child[a:b]]
         p = prob_rows[:, a:b]
         if r:
-            live = p > 0
             seg = np.repeat(np.arange(len(starts)), np.diff(np.append(starts, b - a)))
-            m = np.minimum.reduceat(np.where(live, bv, np.inf), starts, axis=1)
-            with np.errstate(over="ignore", invalid="ignore"):
-                exponent = np.where(live, -(bv - m[:, seg]) / r, 0.0)
-            e = np.where(live, np.exp(exponent), 0.0)
-            d = np.where(live, np.expm1(exponent), 0.0)
             # Segments with no live branch (decision nodes) come out NaN, and are not taken.
-            chance = m - r * log_expectations(np.add.reduceat(p, starts, axis=1),
-                                              np.add.reduceat(p * e, starts, axis=1),
-                                              np.add.reduceat(p * d, starts, axis=1))
+            chance = segment_certainty_equivalents(bv, p, starts, seg, r)
         else:
             chance = np.add.reduceat(p * bv, starts, axis=1)
         top = np.maximum.reduceat(bv, starts, axis=1)

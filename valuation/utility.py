@@ -30,7 +30,7 @@ import numpy as np
 from valuation.errors import ParameterError
 
 __all__ = ["certainty_equivalent", "check_risk_tolerance", "log_expectation", "log_expectations",
-           "risk_tolerance_from_gamble"]
+           "risk_tolerance_from_gamble", "segment_certainty_equivalents"]
 
 
 def check_risk_tolerance(risk_tolerance: float | None) -> float | None:
@@ -111,6 +111,27 @@ def log_expectations(prob_sums, exp_sums, expm1_sums) -> np.ndarray:
         far = np.log(np.asarray(exp_sums, dtype=float) / prob_sums)
     near = np.log1p(np.maximum(q, _LOG1P_FLOOR))
     return np.where(q > _LOG1P_FLOOR, near, far)
+
+
+def segment_certainty_equivalents(values, probs, starts, seg, r: float) -> np.ndarray:
+    """Certainty equivalent of every segment of every row: the chance nodes of one tree
+    level (segments as ``np.add.reduceat`` takes them along axis 1, ``seg`` the segment
+    of each column) under several parameter values at once (rows).
+
+    The batched rollbacks of sweeps and of the value of learning share it, so both take
+    a chance node's certainty equivalent in the same operations. Branches of
+    probability 0 are left out; a segment with none live (a decision node's) comes out
+    NaN, for the caller to replace.
+    """
+    live = probs > 0
+    m = np.minimum.reduceat(np.where(live, values, np.inf), starts, axis=1)
+    with np.errstate(over="ignore", invalid="ignore"):  # a tiny R: the exponent is -inf
+        exponent = np.where(live, -(values - m[:, seg]) / r, 0.0)
+    e = np.where(live, np.exp(exponent), 0.0)
+    d = np.where(live, np.expm1(exponent), 0.0)
+    return m - r * log_expectations(np.add.reduceat(probs, starts, axis=1),
+                                    np.add.reduceat(probs * e, starts, axis=1),
+                                    np.add.reduceat(probs * d, starts, axis=1))
 
 
 def risk_tolerance_from_gamble(largest_gain: float) -> float:

@@ -20,18 +20,7 @@ from rest_framework.renderers import JSONRenderer
 
 from decisions.api.renderers import CoreResultRenderer
 from tests.personas import small_table
-
-
-def _typed(value):
-    """``value`` as nested tuples that tell int from float and -0.0 from 0.0."""
-    if isinstance(value, dict):
-        return ("dict", tuple((key, _typed(sub)) for key, sub in value.items()))
-    if isinstance(value, list):
-        return ("list", tuple(_typed(sub) for sub in value))
-    if isinstance(value, float):
-        return ("float", value.hex())
-    return (type(value).__name__, value)
-
+from tests.typed_values import typed
 
 TEXT = st.text(st.characters(blacklist_categories=("Cs",)), max_size=12) | st.sampled_from(
     ["line\u2028break", "para\u2029graph", "quote \" and \\ back", "ctl \x00 \x1f", "é €"])
@@ -49,7 +38,7 @@ def test_every_plain_value_reads_back_as_drf_writes_it(value):
     if value is None:  # DRF writes no body for no data
         assert ours == drf == b""
         return
-    assert _typed(json.loads(ours)) == _typed(json.loads(drf))
+    assert typed(json.loads(ours)) == typed(json.loads(drf))
     # DRF escapes the two JavaScript line terminators; so must we.
     assert "\u2028".encode() not in ours and "\u2029".encode() not in ours
 
@@ -88,7 +77,7 @@ def test_the_evaluate_endpoint_answers_the_same_document(people, client_for):
     assert response.status_code == 200
     assert response["Content-Type"] == "application/json"
     expected = JSONRenderer().render(valuation.evaluate(doc))
-    assert _typed(json.loads(response.content)) == _typed(json.loads(expected))
+    assert typed(json.loads(response.content)) == typed(json.loads(expected))
 
 
 @pytest.mark.django_db

@@ -18,6 +18,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from decisions.api.parsers import MAX_DEPTH, BodyProblem, parse_strict_json
+from tests.typed_values import typed
 
 
 class Pairs(list):
@@ -141,27 +142,16 @@ def test_colons_inside_strings_are_accepted_with_the_same_result():
 # reader of the standard library), so that the fast reading cannot change a value's
 # type or its last bit unnoticed.
 
-def _typed(value):
-    """``value`` as nested tuples that tell int from float and -0.0 from 0.0."""
-    if isinstance(value, dict):
-        return ("dict", tuple((key, _typed(sub)) for key, sub in value.items()))
-    if isinstance(value, list):
-        return ("list", tuple(_typed(sub) for sub in value))
-    if isinstance(value, float):
-        return ("float", value.hex())
-    return (type(value).__name__, value)
-
-
 def _typed_outcome(text: str):
     try:
-        return ("accepted", _typed(parse_strict_json(text.encode())))
+        return ("accepted", typed(parse_strict_json(text.encode())))
     except BodyProblem as exc:
         return ("refused", str(exc.detail))
 
 
 def _typed_reference(text: str):
     try:
-        return ("accepted", _typed(_reference(text)))
+        return ("accepted", typed(_reference(text)))
     except BodyProblem as exc:
         return ("refused", str(exc.detail))
 
@@ -260,11 +250,11 @@ def test_what_orjson_refuses_is_decided_by_the_standard_library(raw):
 
     assert _orjson_parse(raw) is _UNSETTLED
     try:
-        expected = ("accepted", _typed(_stdlib_parse(raw)))
+        expected = ("accepted", typed(_stdlib_parse(raw)))
     except BodyProblem as exc:
         expected = ("refused", str(exc.detail))
     try:
-        got = ("accepted", _typed(parse_strict_json(raw)))
+        got = ("accepted", typed(parse_strict_json(raw)))
     except BodyProblem as exc:
         got = ("refused", str(exc.detail))
     assert got == expected
@@ -279,7 +269,7 @@ def test_an_ordinary_model_body_is_settled_by_the_orjson_reading():
     raw = json.dumps({"document": alternating_tree(199, seed=7)}).encode()
     data = _orjson_parse(raw)
     assert data is not _UNSETTLED
-    assert _typed(data) == _typed(json.loads(raw))
+    assert typed(data) == typed(json.loads(raw))
 
 
 @pytest.mark.parametrize(("raw", "location", "message"), [

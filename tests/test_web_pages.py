@@ -383,3 +383,30 @@ def test_one_way_sensitivity_to_the_chosen_input_shows_the_break_even(draft, peo
     assert '<option value="states[0].probability" selected>' in page
     assert re.search(r"Break-even: 0\.35(00)?\b", page)
     assert "(tie rule)" not in page
+
+
+def test_a_model_too_large_to_analyse_on_the_page_says_so_instead(people, monkeypatch):
+    # The memo's rule (services.memo.SENSITIVITY_NODE_LIMIT): a tornado re-evaluates the
+    # model once per input, so the page of a 4,000-node tree took 4.3 s (measured
+    # 2026-12), and a 20,000-node one would hold a server worker for a minute or more.
+    from decisions.web import figures
+    from tests.test_drawings import big_tree
+
+    called = []
+    monkeypatch.setattr(figures, "tornado", lambda *a, **k: called.append(1) or [])
+    decision = svc.create_decision(actor=people.ana, team=people.team, title="Big (invented)",
+                                   policy={"financial review": 1})
+    doc = big_tree(figures.SENSITIVITY_NODE_LIMIT + 50)
+    svc.save_version(decision.pk, actor=people.ana, document=doc, change_note="big",
+                     if_match=IF_MATCH_ANY)
+    page = html(client_as(people.ana).get(page_urls(decision)["decision"]))
+    section = page.split('id="sensitivity"')[1].split("</section>")[0]
+    assert (f"Sensitivity not computed. The model has more than "
+            f"{figures.SENSITIVITY_NODE_LIMIT:,} nodes or cells") in section
+    assert "<svg" not in section and called == []
+
+
+def test_a_model_within_the_limit_still_gets_its_tornado(draft, people):
+    page = html(client_as(people.vic).get(page_urls(draft)["decision"]))
+    section = page.split('id="sensitivity"')[1].split("</section>")[0]
+    assert "<svg" in section and "Sensitivity not computed" not in section

@@ -31,12 +31,14 @@ from decisions.services.signoff import policy_progress
 from decisions.services.sources import calibration, claimed_vs_calibrated
 
 __all__ = ["memo_data", "memo_filename", "memo_for_version", "memo_for_operator",
-           "SENSITIVITY_NODE_LIMIT", "TORNADO_ROWS", "SWEEPS"]
+           "model_size", "SENSITIVITY_NODE_LIMIT", "TORNADO_ROWS", "SWEEPS"]
 
 log = logging.getLogger(__name__)
 
 #: Sensitivity is computed for models up to this many tree nodes (a table: its cells);
-#: beyond it the memo says it was not computed rather than holding the request up
+#: beyond it the memo and the decision page say it was not computed rather than holding
+#: the request up (the tornado re-evaluates the model once per input: its cost grows
+#: with the square of the size)
 #: (measured on 2 busy cores: 200 nodes 0.5 s, 1,000 nodes 2.5 s, 3,000 nodes 18 s).
 SENSITIVITY_NODE_LIMIT = 1_000
 #: Inputs shown in the tornado chart and swept one way for break-even values.
@@ -50,7 +52,9 @@ def _utc(value: datetime | None) -> str:
     return value.astimezone(UTC).strftime("%Y-%m-%d %H:%M:%S UTC")
 
 
-def _model_size(document: dict) -> int:
+def model_size(document: dict) -> int:
+    """Tree nodes, or a payoff table's cells times (1 + studies): the measure of
+    ``SENSITIVITY_NODE_LIMIT``, shared by the memo and the decision page."""
     if document.get("kind") == "payoff_table":
         return len(document.get("states", [])) * max(len(document.get("alternatives", [])), 1) \
             * (1 + len(document.get("studies", [])))
@@ -63,7 +67,7 @@ def sensitivity_data(document: dict, results: dict) -> dict:
     ``valuation.sensitivity`` is the core's; while it is absent or fails on a model
     the memo prints "Sensitivity not computed" with the reason instead.
     """
-    if _model_size(document) > SENSITIVITY_NODE_LIMIT:
+    if model_size(document) > SENSITIVITY_NODE_LIMIT:
         return {"note": f"The model has more than {SENSITIVITY_NODE_LIMIT:,} nodes or cells, too "
                         f"many to analyse while the memo is generated; run "
                         f"'python -m valuation sensitivity FILE --tornado' on its document."}

@@ -12,6 +12,7 @@ from django.utils.safestring import mark_safe
 from decisions.drawings.charts import risk_profile_chart, sensitivity_chart, tornado_chart
 from decisions.drawings.render import to_svg
 from decisions.drawings.tree import tree_drawings, tree_legend
+from decisions.services.memo import SENSITIVITY_NODE_LIMIT, model_size
 from valuation import expand
 from valuation.errors import ValuationError
 from valuation.sensitivity import TIE_RULE_NOTE, one_way, tornado
@@ -32,7 +33,7 @@ def figures(document: dict, results: dict, *, chosen_input: str | None) -> dict:
     cur = results.get("currency") or ""
     out: dict = {"tree_svgs": [], "risk_svg": None, "tornado_svg": None, "oneway_svg": None,
                  "inputs": [], "chosen_input": None, "sensitivity_error": None,
-                 "tornado_rows": []}
+                 "tornado_rows": [], "sensitivity_note": None}
     parts = tree_drawings(expand(document), results.get("nodes") or {})
     out["tree_total"] = len(parts)
     out["tree_svgs"] = [_svg(d, f"Decision tree, part {i + 1} of {len(parts)}", f"tree{i}")
@@ -42,6 +43,14 @@ def figures(document: dict, results: dict, *, chosen_input: str | None) -> dict:
         out["risk_svg"] = _svg(risk_profile_chart(results["risk_profile"], currency=cur,
                                                   objective=results.get("objective", "max")),
                                "Risk profile of the recommended plan", "risk")
+    if model_size(document) > SENSITIVITY_NODE_LIMIT:
+        # The memo's rule: a tornado re-evaluates the model once per input, so a large
+        # model would hold the page (and a server worker) up for minutes.
+        out["sensitivity_note"] = (
+            f"The model has more than {SENSITIVITY_NODE_LIMIT:,} nodes or cells, too many to "
+            f"analyse while the page is drawn; run 'python -m valuation sensitivity FILE "
+            f"--tornado' on its model document.")
+        return out
     risk_tolerance = results.get("risk_tolerance")
     try:
         rows = tornado(document, risk_tolerance=risk_tolerance)

@@ -336,3 +336,26 @@ def test_creating_in_a_team_beyond_64_bits_is_refused(people, client_for, url, b
     assert c.post(url, {**body, "team": BIGGEST_ID}, format="json").status_code in (400, 403, 404)
     for team in TOO_BIG:
         _error(c.post(url, {**body, "team": team}, format="json"), 400, "team")
+
+
+def test_a_table_too_large_to_write_as_a_tree_refuses_an_outcome_by_name(people, client_for,
+                                                                         monkeypatch):
+    # An outcome names the branches taken in the equivalent tree, which is written out
+    # only up to EXPAND_NODE_LIMIT nodes (a 1,000 x 1,000 table with a 10-signal study
+    # has 11,011,013): the API says why with a 400 and the web form page sends the analyst
+    # back with the reason, where both met the core's error as a 500. The limit is lowered
+    # so that the small survey table stands in for such a table.
+    import importlib
+
+    decision = committed(people)
+    monkeypatch.setattr(importlib.import_module("valuation.expand"), "EXPAND_NODE_LIMIT", 5)
+    r = client_for(people.ana).post(f"/api/decisions/{decision.pk}/outcome/",
+                                    {"path": GOOD_COLD, "realised_value": 1.0}, format="json",
+                                    HTTP_IF_MATCH=decision.etag)
+    message = _error(r, 400, "path")
+    assert message.startswith("an outcome cannot be recorded for this model: the expanded "
+                              "tree would have")
+    page = client_as(people.ana).get(f"/decisions/{decision.pk}/outcome/", follow=True)
+    assert page.status_code == 200
+    assert "An outcome cannot be recorded for this model: the expanded tree would have" in \
+        html(page)

@@ -410,3 +410,23 @@ def test_a_model_within_the_limit_still_gets_its_tornado(draft, people):
     page = html(client_as(people.vic).get(page_urls(draft)["decision"]))
     section = page.split('id="sensitivity"')[1].split("</section>")[0]
     assert "<svg" in section and "Sensitivity not computed" not in section
+
+
+def test_a_table_whose_tree_is_too_large_to_write_out_still_has_its_page(draft, people,
+                                                                          monkeypatch):
+    # A valid payoff table is evaluated as a table; its equivalent tree is only written
+    # out up to EXPAND_NODE_LIMIT nodes. The page of a 1,000 x 1,000 table with a
+    # 10-signal study (11,011,013 nodes) answered 500 before; the limit is lowered here
+    # so that the small table of the fixture stands in for it.
+    import importlib
+
+    # (``valuation.expand`` is the function; the module is reached by its full name)
+    monkeypatch.setattr(importlib.import_module("valuation.expand"), "EXPAND_NODE_LIMIT", 5)
+    response = client_as(people.vic).get(page_urls(draft)["decision"])
+    assert response.status_code == 200
+    page = html(response)
+    section = page.split('id="tree-h"')[1].split("</section>")[0]
+    assert "The tree is not drawn or listed: the expanded tree would have" in section
+    assert "more than the 5 shown; the table itself is still evaluated" in section
+    assert "<svg" not in section
+    assert "Expected value" in page or "expected value" in page

@@ -52,7 +52,7 @@ from decisions.services.audit import append_event
 from decisions.services.decisions import _touch, clean_amount
 from decisions.services.errors import ConflictError, InvalidInput, NotFoundError
 from decisions.services.locking import lock_decision
-from valuation.errors import ValuationError
+from valuation.errors import ModelValidationError, ValuationError
 
 __all__ = ["current_outcome", "outcome_history", "record_outcome", "review", "walk_path"]
 
@@ -65,8 +65,18 @@ MAX_NOTE = 5000
 # ---- the path -----------------------------------------------------------------------------
 
 def _tree_of(version: ModelVersion) -> tuple[dict, dict]:
+    """The version's document and its general tree, whose node ids an outcome's path names.
+
+    A payoff table whose equivalent tree is too large to write out (it is evaluated as a
+    table) has no such ids: its outcome cannot be recorded by path, and the caller is
+    told so instead of meeting the core's error.
+    """
     doc = json.loads(version.canonical_json)
-    return doc, valuation.expand(doc)
+    try:
+        return doc, valuation.expand(doc)
+    except ModelValidationError as exc:
+        raise InvalidInput(f"an outcome cannot be recorded for this model: "
+                           f"{exc.problems[0].message}", location="path") from None
 
 
 def _chance_below(nodes: dict[str, dict], root: str) -> dict[str, set[str]]:

@@ -13,7 +13,6 @@ from decisions.drawings.charts import risk_profile_chart, sensitivity_chart, tor
 from decisions.drawings.render import to_svg
 from decisions.drawings.tree import tree_drawings, tree_legend
 from decisions.services.memo import SENSITIVITY_NODE_LIMIT, model_size
-from valuation import expand
 from valuation.errors import ValuationError
 from valuation.sensitivity import TIE_RULE_NOTE, one_way, tornado
 
@@ -28,13 +27,18 @@ def _svg(drawing, title: str, prefix: str):
     return mark_safe(to_svg(drawing, id_prefix=prefix, title=title))  # noqa: S308
 
 
-def figures(document: dict, results: dict, *, chosen_input: str | None) -> dict:
-    """SVG of the tree parts, the risk profile, the tornado and one chosen one-way sweep."""
+def figures(document: dict, results: dict, *, tree: dict | None,
+            chosen_input: str | None) -> dict:
+    """SVG of the tree parts, the risk profile, the tornado and one chosen one-way sweep.
+
+    ``tree`` is the model as a general tree (``valuation.expand``), or None when that
+    tree is too large to write out (then it is not drawn).
+    """
     cur = results.get("currency") or ""
     out: dict = {"tree_svgs": [], "risk_svg": None, "tornado_svg": None, "oneway_svg": None,
                  "inputs": [], "chosen_input": None, "sensitivity_error": None,
                  "tornado_rows": [], "sensitivity_note": None}
-    parts = tree_drawings(expand(document), results.get("nodes") or {})
+    parts = tree_drawings(tree, results.get("nodes") or {}) if tree is not None else []
     out["tree_total"] = len(parts)
     out["tree_svgs"] = [_svg(d, f"Decision tree, part {i + 1} of {len(parts)}", f"tree{i}")
                         for i, d in enumerate(parts[:MAX_TREE_PARTS])]

@@ -11,8 +11,6 @@ import json
 import math
 from typing import Any
 
-from valuation import expand
-
 __all__ = ["money", "prob", "pct", "results_view", "tree_rows", "diff_rows"]
 
 
@@ -120,15 +118,15 @@ def results_view(results: dict) -> dict:
     }
 
 
-def tree_rows(document: dict, results: dict, *, limit: int = 400) -> tuple[list[dict], bool]:
-    """The (expanded) tree as indented rows: branch, node, probability, value, marks.
+def tree_rows(tree: dict, results: dict, *, limit: int = 400) -> tuple[list[dict], bool]:
+    """The tree as indented rows: branch, node, probability, value, marks.
 
-    A payoff table is shown as the equivalent tree the core evaluated, so the
-    node ids match the stored ``results["nodes"]``. ``limit`` bounds the page for
-    very large models; the second value says whether rows were left out.
+    ``tree`` is the model's general tree (``valuation.expand``): a payoff table is
+    shown as the equivalent tree the core evaluated, so the node ids match the
+    stored ``results["nodes"]``. ``limit`` bounds the page for very large models;
+    the second value says whether rows were left out.
     """
     cur = results.get("currency") or ""
-    tree = expand(document)
     nodes = {n["id"]: n for n in tree.get("nodes", [])}
     info = results.get("nodes") or {}
     rows: list[dict] = []

@@ -25,7 +25,9 @@ from decisions.web.figures import figures
 from decisions.web.forms import CloseForm, PolicyForm, SignForm, StrategyForm
 from decisions.web.panels import decision_panels
 from decisions.web.presenters import diff_rows, money, results_view, tree_rows
+from valuation import expand
 from valuation.diff import diff_documents
+from valuation.errors import ModelValidationError
 
 __all__ = ["close", "commit", "detail", "diff", "policy", "sign", "strategy", "submit"]
 
@@ -44,6 +46,16 @@ def _memo_url(decision, version) -> str | None:
                                                "number": version.number})
     except NoReverseMatch:
         return None
+
+
+def _as_tree(document: dict) -> tuple[dict | None, str | None]:
+    """The model as the general tree the page draws and lists, once for both; or None and
+    the reason, for a payoff table whose equivalent tree is too large to write out (its
+    figures are complete all the same: the core evaluates the table itself)."""
+    try:
+        return expand(document), None
+    except ModelValidationError as exc:
+        return None, exc.problems[0].message
 
 
 def _version_choice(request, decision, current):
@@ -68,7 +80,8 @@ def detail(request, pk, *, sign_form=None, strategy_form=None, source_form=None,
     state = queries.sign_state(request.user, decision, current, progress)
     results = version.results if version else None
     document = json.loads(version.canonical_json) if version else None
-    tree, tree_truncated = tree_rows(document, results) if version else ([], False)
+    tree_doc, tree_note = _as_tree(document) if version else (None, None)
+    tree, tree_truncated = tree_rows(tree_doc, results) if tree_doc else ([], False)
     strategies = list(current.strategies.select_related("chosen_by").order_by("-chosen_at", "-id")) \
         if current else []
     is_analyst = role == Role.ANALYST
@@ -80,7 +93,8 @@ def detail(request, pk, *, sign_form=None, strategy_form=None, source_form=None,
     if strategy_form is None and is_analyst and decision.status == Status.APPROVED:
         strategy_form = StrategyForm(initial={"etag": decision.etag}, alternatives=alternatives)
     rejection = queries.rejection_of(current)
-    drawn = figures(document, results, chosen_input=request.GET.get("input")) if version else {}
+    drawn = figures(document, results, tree=tree_doc,
+                    chosen_input=request.GET.get("input")) if version else {}
     context = {
         **drawn,
         "decision": decision, "role": role, "version": version, "current": current,
@@ -92,7 +106,7 @@ def detail(request, pk, *, sign_form=None, strategy_form=None, source_form=None,
         ],
         "r": results_view(results) if results else None,
         "document_kind": (document or {}).get("kind"),
-        "tree": tree, "tree_truncated": tree_truncated,
+        "tree": tree, "tree_truncated": tree_truncated, "tree_note": tree_note,
         "strategies": strategies,
         "strategy_rows": [{"s": s, "given_up": money(s.value_given_up,
                                                      current.results.get("currency", ""))}

@@ -26,6 +26,7 @@ from decisions.web.forms_sources import OutcomeForm, as_number
 from decisions.web.presenters import money, prob
 from decisions.web.presenters_sources import review_view
 from valuation import expand
+from valuation.errors import ModelValidationError
 
 __all__ = ["outcome", "review"]
 
@@ -146,7 +147,12 @@ def outcome(request, pk):
         return redirect(reverse("web-decision", args=[decision.pk]))
     version = decision.current_version()
     strategy = version.strategies.order_by("-chosen_at", "-id").first()
-    nodes, total = chance_nodes(version, strategy)
+    try:
+        nodes, total = chance_nodes(version, strategy)
+    except ModelValidationError as exc:  # a table whose equivalent tree is too large to write
+        messages.error(request, f"An outcome cannot be recorded for this model: "
+                                f"{exc.problems[0].message}.")
+        return redirect(reverse("web-decision", args=[decision.pk]))
     previous = svc.current_outcome(decision)
     form = OutcomeForm(request.POST or None, nodes=nodes, signals=_signals(version),
                        initial=_initial(decision, previous, nodes))

@@ -7,6 +7,7 @@ another team and must never see Northfield's decisions (404, not 403).
 
 from __future__ import annotations
 
+import json
 import re
 
 import pytest
@@ -430,3 +431,34 @@ def test_a_table_whose_tree_is_too_large_to_write_out_still_has_its_page(draft, 
     assert "more than the 5 shown; the table itself is still evaluated" in section
     assert "<svg" not in section
     assert "Expected value" in page or "expected value" in page
+
+
+def test_a_lone_surrogate_typed_in_the_json_editor_is_refused_not_a_500(draft, people):
+    # "\ud800" alone is half of a UTF-16 surrogate pair, not a Unicode character (the
+    # Unicode Standard, D75); the stored copy is UTF-8, which cannot hold it.
+    client = client_as(people.ana)
+    doc = json.loads(draft.current_version().canonical_json)
+    text = json.dumps(doc).replace(json.dumps(doc["title"]), '"Heat \\ud800 pump"', 1)
+    response = client.post(reverse("web-edit-json", args=[draft.pk]),
+                           {"etag": etag(draft), "document": text})
+    assert response.status_code == 400
+    assert "is half of a surrogate pair, which UTF-8 cannot encode" in html(response)
+    assert draft.versions.count() == 1
+
+
+def test_the_tree_of_a_model_past_the_detail_limit_is_listed_but_not_drawn(draft, people,
+                                                                          monkeypatch):
+    # Above DETAIL_NODE_LIMIT the stored results hold no node values, and cutting such a
+    # tree into drawn parts took minutes (a 5 x 5 table with 800 signals: 41 s, measured
+    # 2026-12). Stored results without node values stand in for such a model here.
+    from decisions.web import figures
+
+    version = draft.current_version()
+    results = dict(version.results, nodes={})
+    monkeypatch.setattr(figures, "tree_drawings", lambda *a, **k: pytest.fail("drawn"))
+    out = figures.figures(json.loads(version.canonical_json), results,
+                          tree={"kind": "tree", "root": "r", "nodes": [{"id": "r"}] * 3},
+                          chosen_input=None)
+    assert out["tree_svgs"] == [] and out["tree_total"] == 0
+    assert out["drawing_note"] == (f"the tree has 3 nodes, more than the "
+                                   f"{figures.DETAIL_NODE_LIMIT:,} whose values are stored")

@@ -66,7 +66,11 @@ def canonical_json(value: Any) -> bytes:
         ensure_ascii=False,
         allow_nan=False,
     )
-    return text.encode("utf-8")
+    try:
+        return text.encode("utf-8")
+    except UnicodeEncodeError as exc:  # a lone surrogate ("\ud800"): not a Unicode character
+        raise ValuationError(f"text must be Unicode characters: U+{ord(text[exc.start]):04X} "
+                             f"is half of a surrogate pair, which UTF-8 cannot encode") from None
 
 
 def sha256_hex(value: Any) -> str:

@@ -195,8 +195,11 @@ def tree_section(data: dict, width: float, height: float, *,
         return [*out, p(f"The tree is not drawn: {t(exc)}")]
     details = results.get("nodes") or {}
     if not details:
-        out.append(p("Node values are not in the stored results (the tree is larger than the "
-                     "per-node detail limit); the tree is drawn without them.", "small"))
+        # Without node values nothing folds, and cutting a wide tree into parts took
+        # minutes (the decision page leaves it out for the same reason).
+        return [*out, p(f"The tree is not drawn: it has {len(tree_doc.get('nodes', [])):,} "
+                        "nodes, more than the per-node detail limit, so its node values are "
+                        "not in the stored results.")]
     parts = tree_parts(tree_doc, details, width=width, height=height - 70, pages=pages,
                        layout_only=not draw)
     out.append(to_pdf_flowable(tree_legend(width), draw=draw))

@@ -53,11 +53,17 @@ def _utc(value: datetime | None) -> str:
 
 
 def model_size(document: dict) -> int:
-    """Tree nodes, or a payoff table's cells times (1 + studies): the measure of
+    """Nodes of the model's general tree: a payoff table's counted as its equivalent tree
+    holds them (``valuation.expand.expanded_size``: every study signal repeats the whole
+    table), so that a table's many likelihoods count too. The measure of
     ``SENSITIVITY_NODE_LIMIT``, shared by the memo and the decision page."""
     if document.get("kind") == "payoff_table":
-        return len(document.get("states", [])) * max(len(document.get("alternatives", [])), 1) \
-            * (1 + len(document.get("studies", [])))
+        studies = document.get("studies") or []
+        per_decision = 1 + len(document.get("alternatives") or []) * (
+            1 + len(document.get("states") or []))
+        signals = sum(len(study.get("signals") or []) for study in studies
+                      if isinstance(study, dict))
+        return per_decision + len(studies) + signals * per_decision + (1 if studies else 0)
     return len(document.get("nodes", []))
 
 

@@ -14,6 +14,7 @@ from decisions.drawings.render import to_svg
 from decisions.drawings.tree import tree_drawings, tree_legend
 from decisions.services.memo import SENSITIVITY_NODE_LIMIT, model_size
 from valuation.errors import ValuationError
+from valuation.limits import DETAIL_NODE_LIMIT
 from valuation.sensitivity import TIE_RULE_NOTE, one_way, tornado
 
 __all__ = ["figures"]
@@ -37,8 +38,16 @@ def figures(document: dict, results: dict, *, tree: dict | None,
     cur = results.get("currency") or ""
     out: dict = {"tree_svgs": [], "risk_svg": None, "tornado_svg": None, "oneway_svg": None,
                  "inputs": [], "chosen_input": None, "sensitivity_error": None,
-                 "tornado_rows": [], "sensitivity_note": None}
-    parts = tree_drawings(tree, results.get("nodes") or {}) if tree is not None else []
+                 "tornado_rows": [], "sensitivity_note": None, "drawing_note": None}
+    details = results.get("nodes") or {}
+    if tree is not None and not details:
+        # Above the per-node detail limit the stored results hold no node values: nothing
+        # is marked pruned, nothing folds, and cutting such a wide tree into parts took
+        # minutes (a 5 x 5 table with 800 signals: 41 s). The memo leaves it out too.
+        out["drawing_note"] = (f"the tree has {len(tree.get('nodes', [])):,} nodes, more than "
+                               f"the {DETAIL_NODE_LIMIT:,} whose values are stored")
+        tree = None
+    parts = tree_drawings(tree, details) if tree is not None else []
     out["tree_total"] = len(parts)
     out["tree_svgs"] = [_svg(d, f"Decision tree, part {i + 1} of {len(parts)}", f"tree{i}")
                         for i, d in enumerate(parts[:MAX_TREE_PARTS])]

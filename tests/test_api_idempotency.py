@@ -464,3 +464,17 @@ def test_the_key_constraint_is_recognised_in_each_databases_words(message):
     from django.db import IntegrityError
 
     assert idempotency._is_the_key_constraint(IntegrityError(message))
+
+
+def test_the_key_constraint_is_recognised_in_the_databases_own_error(people):
+    # The real refusal of a second (user, key) row by the database in use (SQLite or
+    # PostgreSQL), not a message written by hand.
+    from django.db import IntegrityError, transaction
+
+    decision = svc.create_decision(actor=people.ana, team=people.team, title="k (invented)")
+    IdempotencyKey.objects.create(user=people.ana, key="k-real", request_sha256="0" * 64,
+                                  decision=decision, created_at=timezone.now())
+    with pytest.raises(IntegrityError) as caught, transaction.atomic():
+        IdempotencyKey.objects.create(user=people.ana, key="k-real", request_sha256="1" * 64,
+                                      decision=decision, created_at=timezone.now())
+    assert idempotency._is_the_key_constraint(caught.value)

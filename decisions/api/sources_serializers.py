@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from rest_framework import serializers
 
-from decisions.api.serializers import StrictSerializer
+from decisions.api.serializers import MAX_ROW_ID, StrictSerializer
 from decisions.models import Outcome, StudyRecord, StudySource
 from decisions.services.sources import ACCURACY_MODES
 
@@ -61,7 +61,7 @@ class OutcomeSerializer(serializers.ModelSerializer):
 
 
 class StudySourceCreateSerializer(StrictSerializer):
-    team = serializers.IntegerField(min_value=1, max_value=2**63 - 1)  # a 64-bit row id
+    team = serializers.IntegerField(min_value=1, max_value=MAX_ROW_ID)
     name = serializers.CharField(max_length=200)
     claimed = serializers.JSONField(help_text="state -> signal -> claimed P(signal | state)")
     prior_strength = serializers.FloatField(required=False, allow_null=True)

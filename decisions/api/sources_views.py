@@ -23,6 +23,7 @@ from rest_framework.permissions import IsAuthenticated
 from rest_framework.response import Response
 
 from decisions.api import sources_serializers as ss
+from decisions.api.serializers import MAX_ROW_ID
 from decisions.services import outcomes, portfolio, sources
 from decisions.services.access import visible_decisions
 from decisions.services.decisions import get_version
@@ -86,8 +87,8 @@ class SourceListView(GenericAPIView):
                 team_id = int(team)
             except ValueError:
                 raise InvalidInput(f"must be a team id, got {team!r}", location="team") from None
-            if not 1 <= team_id <= 2**63 - 1:  # beyond a 64-bit row id SQLite cannot look up
-                raise InvalidInput(f"must be a team id from 1 to {2**63 - 1}, got {team[:30]}"
+            if not 1 <= team_id <= MAX_ROW_ID:
+                raise InvalidInput(f"must be a team id from 1 to {MAX_ROW_ID}, got {team[:30]}"
                                    f"{'…' if len(team) > 30 else ''}", location="team")
             qs = qs.filter(team_id=team_id)
         page = self.paginate_queryset(qs.select_related("created_by").order_by("name", "id"))

@@ -390,6 +390,7 @@ def test_a_model_too_large_to_analyse_on_the_page_says_so_instead(people, monkey
     # The memo's rule (services.memo.SENSITIVITY_NODE_LIMIT): a tornado re-evaluates the
     # model once per input, so the page of a 4,000-node tree took 4.3 s (measured
     # 2026-12), and a 20,000-node one would hold a server worker for a minute or more.
+    from decisions.services.memo import SENSITIVITY_NODE_LIMIT
     from decisions.web import figures
     from tests.test_drawings import big_tree
 
@@ -397,13 +398,14 @@ def test_a_model_too_large_to_analyse_on_the_page_says_so_instead(people, monkey
     monkeypatch.setattr(figures, "tornado", lambda *a, **k: called.append(1) or [])
     decision = svc.create_decision(actor=people.ana, team=people.team, title="Big (invented)",
                                    policy={"financial review": 1})
-    doc = big_tree(figures.SENSITIVITY_NODE_LIMIT + 50)
+    doc = big_tree(SENSITIVITY_NODE_LIMIT + 50)
     svc.save_version(decision.pk, actor=people.ana, document=doc, change_note="big",
                      if_match=IF_MATCH_ANY)
     page = html(client_as(people.ana).get(page_urls(decision)["decision"]))
     section = page.split('id="sensitivity"')[1].split("</section>")[0]
     assert (f"Sensitivity not computed. The model has more than "
-            f"{figures.SENSITIVITY_NODE_LIMIT:,} nodes or cells") in section
+            f"{SENSITIVITY_NODE_LIMIT:,} nodes (a payoff table counted as the nodes of its "
+            f"equivalent tree), too many to analyse while the page is drawn") in section
     assert "<svg" not in section and called == []
 
 

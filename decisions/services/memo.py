@@ -31,7 +31,8 @@ from decisions.services.signoff import policy_progress
 from decisions.services.sources import calibration, claimed_vs_calibrated
 
 __all__ = ["memo_data", "memo_filename", "memo_for_version", "memo_for_operator",
-           "model_size", "SENSITIVITY_NODE_LIMIT", "TORNADO_ROWS", "SWEEPS"]
+           "model_size", "too_large_for_sensitivity", "SENSITIVITY_NODE_LIMIT", "TORNADO_ROWS",
+           "SWEEPS"]
 
 log = logging.getLogger(__name__)
 
@@ -67,16 +68,25 @@ def model_size(document: dict) -> int:
     return len(document.get("nodes", []))
 
 
+def too_large_for_sensitivity(document: dict, occasion: str) -> str | None:
+    """Why the model is not analysed ``occasion`` ("while the memo is generated"), or None
+    when it is within ``SENSITIVITY_NODE_LIMIT``: the memo's and the decision page's rule."""
+    if model_size(document) <= SENSITIVITY_NODE_LIMIT:
+        return None
+    return (f"The model has more than {SENSITIVITY_NODE_LIMIT:,} nodes (a payoff table counted "
+            f"as the nodes of its equivalent tree), too many to analyse {occasion}; run "
+            f"'python -m valuation sensitivity FILE --tornado' on its document.")
+
+
 def sensitivity_data(document: dict, results: dict) -> dict:
     """Tornado rows and one-way sweeps of the most influential inputs, or a note why not.
 
     ``valuation.sensitivity`` is the core's; while it is absent or fails on a model
     the memo prints "Sensitivity not computed" with the reason instead.
     """
-    if model_size(document) > SENSITIVITY_NODE_LIMIT:
-        return {"note": f"The model has more than {SENSITIVITY_NODE_LIMIT:,} nodes or cells, too "
-                        f"many to analyse while the memo is generated; run "
-                        f"'python -m valuation sensitivity FILE --tornado' on its document."}
+    note = too_large_for_sensitivity(document, "while the memo is generated")
+    if note:
+        return {"note": note}
     try:
         from valuation import sensitivity
     except ImportError:

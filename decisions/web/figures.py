@@ -12,7 +12,7 @@ from django.utils.safestring import mark_safe
 from decisions.drawings.charts import risk_profile_chart, sensitivity_chart, tornado_chart
 from decisions.drawings.render import to_svg
 from decisions.drawings.tree import tree_drawings, tree_legend
-from decisions.services.memo import SENSITIVITY_NODE_LIMIT, model_size
+from decisions.services.memo import too_large_for_sensitivity
 from valuation.errors import ValuationError
 from valuation.limits import DETAIL_NODE_LIMIT
 from valuation.sensitivity import TIE_RULE_NOTE, one_way, tornado
@@ -56,13 +56,10 @@ def figures(document: dict, results: dict, *, tree: dict | None,
         out["risk_svg"] = _svg(risk_profile_chart(results["risk_profile"], currency=cur,
                                                   objective=results.get("objective", "max")),
                                "Risk profile of the recommended plan", "risk")
-    if model_size(document) > SENSITIVITY_NODE_LIMIT:
-        # The memo's rule: a tornado re-evaluates the model once per input, so a large
-        # model would hold the page (and a server worker) up for minutes.
-        out["sensitivity_note"] = (
-            f"The model has more than {SENSITIVITY_NODE_LIMIT:,} nodes or cells, too many to "
-            f"analyse while the page is drawn; run 'python -m valuation sensitivity FILE "
-            f"--tornado' on its model document.")
+    # The memo's rule: a tornado re-evaluates the model once per input, so a large model
+    # would hold the page (and a server worker) up for minutes.
+    out["sensitivity_note"] = too_large_for_sensitivity(document, "while the page is drawn")
+    if out["sensitivity_note"]:
         return out
     risk_tolerance = results.get("risk_tolerance")
     try:

@@ -98,7 +98,8 @@ def _table_arrays(t: PayoffTable, settings: list[Setting], r0: int, r1: int):
 
 
 def _ce_rows(x: np.ndarray, p: np.ndarray, r: float, axis: int) -> np.ndarray:
-    """Certainty equivalent along ``axis`` (the states), as ``table_eval._lottery_ce``.
+    """Certainty equivalent along ``axis`` (the states, or the signals of a study), as
+    ``table_eval._lottery_ce``.
 
     Outcomes of probability 0 are left out, and the minimum of the others is
     factored out so that no exponential overflows; the logarithm is
@@ -109,26 +110,11 @@ def _ce_rows(x: np.ndarray, p: np.ndarray, r: float, axis: int) -> np.ndarray:
     with np.errstate(over="ignore", invalid="ignore"):
         exponent = np.where(live, -(x - m) / r, 0.0)
     p = np.where(live, p, 0.0)
+    # (Where not live the exponent is 0, so its exp and expm1 are finite, times p = 0.)
     log_total = log_expectations(np.sum(p, axis=axis), np.sum(p * np.exp(exponent), axis=axis),
-                                 np.sum(p * np.where(live, np.expm1(exponent), 0.0), axis=axis))
+                                 np.sum(p * np.expm1(exponent), axis=axis))
     # A signal of probability 0 has no live state: its NaN is masked by the caller.
     return np.squeeze(m, axis=axis) - r * log_total
-
-
-def _ce_over_signals(value_by_signal, ps, live, r: float) -> np.ndarray:
-    """Certainty equivalent, per row, of the values after each possible signal.
-
-    Shifted by the row's smallest live value so no exponential overflows; signals
-    that cannot occur are left out.
-    """
-    vals = np.where(live, value_by_signal, np.inf)
-    m = vals.min(axis=1, keepdims=True)
-    with np.errstate(over="ignore", invalid="ignore"):
-        exponent = np.where(live, -(vals - m) / r, 0.0)
-    p = np.where(live, ps, 0.0)
-    log_total = log_expectations(np.sum(p, axis=1), np.sum(p * np.exp(exponent), axis=1),
-                                 np.sum(p * np.where(live, np.expm1(exponent), 0.0), axis=1))
-    return m[:, 0] - r * log_total
 
 
 def _table_batch(t: PayoffTable, prior, payoffs, costs, liks, r: float | None) -> BatchValues:
@@ -159,7 +145,7 @@ def _table_batch(t: PayoffTable, prior, payoffs, costs, liks, r: float | None) -
         safe_best = np.maximum(best, 0)
         value_by_signal = np.take_along_axis(sig_crit, safe_best[:, None, :], axis=1)[:, 0, :]
         if r:
-            free = _ce_over_signals(value_by_signal, ps, live, r)
+            free = _ce_rows(value_by_signal, ps, r, axis=1)  # over the signals that can occur
         else:
             free = np.sum(np.where(live, ps * value_by_signal, 0.0), axis=1)
         plan_ev = np.sum(np.where(live, np.take_along_axis(jv, safe_best[:, None, :], axis=1)[:, 0, :],
@@ -413,7 +399,7 @@ def _table_plan_value(t: PayoffTable, prior, payoffs, costs, liks, key, r) -> np
     pick = np.where(choice[None, :] >= 0, choice[None, :], _first_best(sig_crit, axis=1))
     value_by_signal = np.take_along_axis(sig_crit, pick[:, None, :], axis=1)[:, 0, :]
     if r:
-        free = _ce_over_signals(value_by_signal, ps, live, r)
+        free = _ce_rows(value_by_signal, ps, r, axis=1)  # over the signals that can occur
     else:
         free = np.sum(np.where(live, np.take_along_axis(jv, pick[:, None, :], axis=1)[:, 0, :], 0.0),
                       axis=1)
